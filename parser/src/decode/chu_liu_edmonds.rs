@@ -1,6 +1,5 @@
 //! Chu-Liu (1965) / Edmonds (1967) maximum spanning arborescence in O(n²) on dense graphs,
-//! organised as in Tarjan (1977), with the single-root repair of Zmigrod, Vieira & Cotterell
-//! (2020, "Please Mind the Root", Algorithm 2 / Theorem 2).
+//! organised as in Tarjan (1977), with an exact single-root search on top.
 //!
 //! The graph is kept as one dense matrix indexed by *slot*: `incoming[v][u]` holds the best
 //! reduced score of an arc from group `u` into group `v`, together with the original arc that
@@ -14,17 +13,24 @@
 //!    components (union-find) tell whether the pick closes a cycle; if it does, the cycle is
 //!    contracted into a new group whose in-arcs are reduced by the score of the member they
 //!    would replace. Arcs from the root never close a cycle and are not merged.
-//! 2. *Single root* (Zmigrod et al. 2020): while more than one top-level group hangs from the
-//!    root, delete the root arc whose loss is cheapest (its reduced score minus the best non-root
-//!    in-arc of the same group) and let that group pick again (which may contract further).
-//!    The best non-root in-arc of a group never changes while the group exists, because merging
-//!    other groups keeps the maximum over their rows; it is computed once per group.
-//! 3. *Expansion*: walking the contractions from the last to the first, the member that
+//! 2. *Expansion*: walking the contractions from the last to the first, the member that
 //!    contains the modifier of the group's chosen in-arc takes that arc; the others keep the
 //!    arc they had inside the cycle.
 //!
-//! Ties: a group takes the in-arc with the smallest slot among equal scores; the single-root
-//! repair deletes the candidate with the smallest slot among equal costs.
+//! Single root (see [`decode`]): when the unconstrained optimum attaches exactly one word to the
+//! root it is also the constrained optimum (nothing more to do, O(n²)). Otherwise the
+//! constrained optimum is `max_r` of the optimum with the root arc forced to `r`, and the
+//! candidates `r` are tried best-bound-first with branch and bound: forcing `r` can gain at most
+//! `score(0, r) − best word head of r` over the sum of every word's best word head, and no
+//! candidate can beat the unconstrained optimum. The search stops as soon as no remaining bound
+//! beats the best tree found. This is exact; its worst case is O(n³) (every candidate tried),
+//! where Zmigrod, Vieira & Cotterell (2020, "Please Mind the Root") give an O(n²) bound. Our
+//! first implementation of their deletion rule failed the brute-force check on a tie-free
+//! 3-word case (a deletion whose cheapest alternative arc closes a cycle), so the exact search
+//! ships until that rule is re-derived and passes the same checks.
+//!
+//! Ties: a group takes the in-arc with the smallest slot among equal scores; among single-root
+//! candidates of equal score the first tried wins (highest bound, then smallest position).
 
 use super::{RootConstraint, ScoreMatrix};
 
@@ -32,11 +38,66 @@ const NONE: usize = usize::MAX;
 
 /// Best arborescence rooted at 0: `heads[m]` for `m` in `1..=n` (`heads[0] = 0`).
 pub fn decode(scores: &ScoreMatrix, root: RootConstraint) -> Vec<usize> {
-    let mut graph = Graph::new(scores);
-    graph.contract_all();
-    if root == RootConstraint::SingleRoot {
-        graph.enforce_single_root();
+    let unconstrained = solve(scores, None);
+    let root_children = unconstrained.iter().skip(1).filter(|&&h| h == 0).count();
+    if root == RootConstraint::MultiRoot || root_children == 1 {
+        return unconstrained;
     }
+    let n = scores.words();
+    let ceiling = scores.tree_score(&unconstrained);
+    // Best word (non-root) head of each word, and their sum: a relaxation of every tree.
+    let best_word_head: Vec<f64> = (0..=n)
+        .map(|m| {
+            if m == 0 {
+                0.0
+            } else {
+                (1..=n)
+                    .map(|h| scores.get(h, m))
+                    .fold(f64::NEG_INFINITY, f64::max)
+            }
+        })
+        .collect();
+    let relaxed: f64 = best_word_head[1..].iter().sum();
+    let mut candidates: Vec<(f64, usize)> = (1..=n)
+        .map(|r| {
+            let bound = if n == 1 {
+                scores.get(0, r)
+            } else {
+                relaxed - best_word_head[r] + scores.get(0, r)
+            };
+            (bound.min(ceiling), r)
+        })
+        .collect();
+    candidates.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(&b.1)));
+    let mut best: Option<(f64, Vec<usize>)> = None;
+    for (bound, r) in candidates {
+        if best
+            .as_ref()
+            .is_some_and(|(best_score, _)| bound <= *best_score)
+        {
+            break;
+        }
+        let heads = solve(scores, Some(r));
+        let score = scores.tree_score(&heads);
+        if best.as_ref().is_none_or(|(b, _)| score > *b) {
+            best = Some((score, heads));
+        }
+    }
+    best.map(|(_, heads)| heads).unwrap_or(unconstrained)
+}
+
+/// Unconstrained maximum arborescence, optionally with `only_root_child` the sole word the root
+/// may take.
+fn solve(scores: &ScoreMatrix, only_root_child: Option<usize>) -> Vec<usize> {
+    let mut graph = Graph::new(scores);
+    if let Some(r) = only_root_child {
+        for v in 1..graph.side {
+            if v != r {
+                graph.incoming[v * graph.side] = f64::NEG_INFINITY;
+            }
+        }
+    }
+    graph.contract_all();
     graph.expand()
 }
 
@@ -91,8 +152,6 @@ struct Graph {
     contractions: Vec<(usize, Vec<usize>)>,
     /// Slots waiting to choose an in-arc (a stack; popped in increasing slot order initially).
     pending: Vec<usize>,
-    /// Per logical node: cost of deleting its root arc (single-root repair), once computed.
-    root_loss: Vec<Option<f64>>,
 }
 
 impl Graph {
@@ -123,7 +182,6 @@ impl Graph {
             node_arc: vec![(0, 0); max_nodes],
             contractions: Vec::new(),
             pending: (1..side).rev().collect(),
-            root_loss: vec![None; max_nodes],
         }
     }
 
@@ -147,8 +205,8 @@ impl Graph {
     fn contract_all(&mut self) {
         while let Some(v) = self.pending.pop() {
             let Some(u) = self.best_in(v) else {
-                // Only reachable when every arc into the group was deleted, which the single-root
-                // repair never does (it keeps a non-root alternative); leave the group unattached.
+                // Unreachable: every word keeps finite in-arcs from the other words (only root arcs
+                // are ever removed), so some arc is always available.
                 continue;
             };
             let cell = v * self.side + u;
@@ -256,47 +314,10 @@ impl Graph {
         self.pending.push(keep);
     }
 
-    fn enforce_single_root(&mut self) {
-        loop {
-            let mut cheapest: Option<(f64, usize)> = None;
-            let mut root_children = 0;
-            for v in 1..self.side {
-                if !self.alive[v] || !matches!(self.chosen[v], Some((0, _, _))) {
-                    continue;
-                }
-                root_children += 1;
-                let node = self.node_of_slot[v];
-                let loss = match self.root_loss[node] {
-                    Some(loss) => loss,
-                    None => {
-                        let row = self.row(v);
-                        let alternative =
-                            row[1..].iter().copied().fold(f64::NEG_INFINITY, f64::max);
-                        let loss = row[0] - alternative;
-                        self.root_loss[node] = Some(loss);
-                        loss
-                    }
-                };
-                if cheapest.is_none_or(|(best, _)| loss < best) {
-                    cheapest = Some((loss, v));
-                }
-            }
-            let Some((_, v)) = cheapest.filter(|_| root_children > 1) else {
-                return;
-            };
-            self.incoming[v * self.side] = f64::NEG_INFINITY;
-            self.chosen[v] = None;
-            self.pending.push(v);
-            self.contract_all();
-        }
-    }
-
     fn expand(&mut self) -> Vec<usize> {
         for v in 1..self.side {
-            if self.alive[v] {
-                if let Some((head, modifier, _)) = self.chosen[v] {
-                    self.node_arc[self.node_of_slot[v]] = (head, modifier);
-                }
+            if let (true, Some((head, modifier, _))) = (self.alive[v], self.chosen[v]) {
+                self.node_arc[self.node_of_slot[v]] = (head, modifier);
             }
         }
         for (node, _members) in self.contractions.iter().rev() {

@@ -228,12 +228,15 @@ pub fn all_trees(words: usize, projective: bool, root: RootConstraint) -> Vec<Ve
     let mut heads = vec![0usize; words + 1];
     loop {
         let valid_heads = (1..=words).all(|m| heads[m] != m);
-        if valid_heads {
-            if let Ok(root_children) = check_tree(&heads) {
-                let root_ok = root == RootConstraint::MultiRoot || root_children == 1;
-                if root_ok && (!projective || is_projective(&heads)) {
-                    trees.push(heads.clone());
-                }
+        let root_children = if valid_heads {
+            check_tree(&heads).ok()
+        } else {
+            None
+        };
+        if let Some(root_children) = root_children {
+            let root_ok = root == RootConstraint::MultiRoot || root_children == 1;
+            if root_ok && (!projective || is_projective(&heads)) {
+                trees.push(heads.clone());
             }
         }
         // Next head vector, odometer style over 0..=words for each word.
