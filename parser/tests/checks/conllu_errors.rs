@@ -54,12 +54,9 @@ fn malformed_files_get_precise_errors() {
             format!("# c\n{}{}", word("1", "0"), word("3", "1")),
             (3, 1, "ID 3 out of sequence; expected 2"),
         ),
-        (format!("{}", word("0", "0")), (1, 1, "expected 1")),
-        (
-            format!("{}", word("x1", "0")),
-            (1, 1, "ID \"x1\" is not a word ID"),
-        ),
-        (format!("{}", word("01", "0")), (1, 1, "not a word ID")),
+        (word("0", "0"), (1, 1, "expected 1")),
+        (word("x1", "0"), (1, 1, "ID \"x1\" is not a word ID")),
+        (word("01", "0"), (1, 1, "not a word ID")),
         // non-numeric and out-of-range head
         (
             format!("{}{}", word("1", "0"), word("2", "one")),
@@ -92,7 +89,7 @@ fn malformed_files_get_precise_errors() {
         ),
         // line endings and blank lines
         (
-            format!("1\ta\t_\tX\t_\t_\t0\troot\t_\t_\r\n"),
+            "1\ta\t_\tX\t_\t_\t0\troot\t_\t_\r\n".to_string(),
             (1, 1, "carriage return"),
         ),
         (format!("\n{}", word("1", "0")), (1, 1, "empty sentence")),

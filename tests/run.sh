@@ -1,0 +1,77 @@
+#!/usr/bin/env bash
+# The project's whole test run: installs what the tests need (idempotently), builds, runs the
+# Rust tests and the outside reference checks. Exit code 0 only if every step passes.
+#
+# Environment: ARCWRIGHT_CACHE (default ./.cache) holds downloaded data and wheels; never in git.
+set -uo pipefail
+cd "$(dirname "$0")/.."
+ROOT=$PWD
+CACHE=${ARCWRIGHT_CACHE:-$ROOT/.cache}
+BIN=$ROOT/target/release/arcwright
+mkdir -p "$CACHE"
+
+passed=0
+failed=0
+failed_steps=()
+step() {
+    local name=$1
+    shift
+    echo "=== $name"
+    local started=$SECONDS
+    if "$@"; then
+        passed=$((passed + 1))
+        echo "--- ok: $name ($((SECONDS - started)) s)"
+    else
+        failed=$((failed + 1))
+        failed_steps+=("$name")
+        echo "--- FAILED: $name ($((SECONDS - started)) s)"
+    fi
+}
+
+install_python_packages() {
+    # Pinned versions of the outside references.
+    python3 -m pip install --quiet --disable-pip-version-check --root-user-action=ignore \
+        "networkx==3.6.1" "conllu==6.0.0"
+}
+
+fetch_turkish_treebank() {
+    # PyPI `turkish-treebanks` (Apache-2.0): two CoNLL-U files. Kept in the cache, never in git.
+    local dir=$CACHE/turkish-treebanks
+    if [[ -s $dir/data/web.conllu && -s $dir/data/wiki.conllu ]]; then
+        return 0
+    fi
+    mkdir -p "$CACHE/wheels" "$dir"
+    python3 -m pip download --quiet --disable-pip-version-check --no-deps \
+        -d "$CACHE/wheels" "turkish-treebanks==1.0.0" || return 1
+    python3 - "$CACHE/wheels" "$dir" <<'PY'
+import glob, sys, zipfile
+wheel = sorted(glob.glob(sys.argv[1] + "/turkish_treebanks-1.0.0-*.whl"))[0]
+with zipfile.ZipFile(wheel) as archive:
+    for name in archive.namelist():
+        if name.startswith("data/") and name.endswith(".conllu"):
+            archive.extract(name, sys.argv[2])
+PY
+}
+
+TREEBANK=$CACHE/turkish-treebanks/data
+
+step "install python reference packages" install_python_packages
+step "fetch the Turkish treebank" fetch_turkish_treebank
+step "cargo fmt --check" cargo fmt --all -- --check
+step "cargo clippy -D warnings" cargo clippy --workspace --all-targets --release --quiet -- -D warnings
+step "cargo build --release" cargo build --workspace --release --quiet
+step "cargo test (workspace)" cargo test --workspace --release --quiet
+step "benchmarks compile" cargo bench --workspace --no-run --quiet
+step "networkx maximum_spanning_arborescence vs decode" \
+    python3 tests/reference/check_networkx.py "$BIN"
+step "conllu package vs our reader, byte-identical rewrite (Turkish treebank)" \
+    python3 tests/reference/check_conllu.py "$BIN" "$TREEBANK/web.conllu" "$TREEBANK/wiki.conllu"
+step "arcwright conllu check on the Turkish treebank" \
+    "$BIN" conllu check "$TREEBANK/web.conllu" "$TREEBANK/wiki.conllu"
+
+echo
+if ((failed > 0)); then
+    printf 'failed step: %s\n' "${failed_steps[@]}"
+fi
+echo "$passed passed, $failed failed"
+((failed == 0))
