@@ -1,12 +1,14 @@
 //! Chu-Liu (1965) / Edmonds (1967) maximum spanning arborescence in O(n²) on dense graphs,
 //! organised as in Tarjan (1977), with an exact single-root search on top.
 //!
-//! The graph is kept as one dense matrix indexed by *slot*: `incoming[v][u]` holds the best
-//! reduced score of an arc from group `u` into group `v`, together with the original arc that
-//! achieves it. Rows are the *incoming* lists, so choosing a node's best in-arc scans contiguous
-//! memory. Contracting a cycle writes the merged row and column into the slot of one member and
-//! blanks the others, in O(n · |cycle|); since cycle sizes add up to less than 2n, the whole
-//! contraction phase is O(n²), and so is the expansion.
+//! Layout: the score matrix is read in place and never copied. One sequential pass over its rows
+//! finds every word's best head (the only O(n²) memory traffic in the common case of few
+//! cycles). A contracted group gets one *incoming row* of its own, indexed by original head:
+//! `row[h]` = the best reduced score of an arc from `h` into any member, with that member's
+//! original modifier. Building it reads each member's column (or row) once, O(n · |cycle|); since
+//! cycle sizes add up to less than 2n, the whole contraction phase is O(n²). Heads that fall
+//! inside the group are skipped when the row is scanned (union-find), so no row or column is
+//! ever rewritten. The expansion is O(n²) as well.
 //!
 //! Phases:
 //! 1. *Contraction* (Tarjan 1977): every group without an in-arc picks its best one. Weak
@@ -20,7 +22,8 @@
 //! Single root (see [`decode`]): when the unconstrained optimum attaches exactly one word to the
 //! root it is also the constrained optimum (nothing more to do, O(n²)). Otherwise the
 //! constrained optimum is `max_r` of the optimum with the root arc forced to `r`, and the
-//! candidates `r` are tried best-bound-first with branch and bound: forcing `r` can gain at most
+//! candidates `r` are tried best-bound-first with branch and bound (each try reuses the first
+//! pass, so it costs O(n) plus its contractions): forcing `r` can gain at most
 //! `score(0, r) − best word head of r` over the sum of every word's best word head, and no
 //! candidate can beat the unconstrained optimum. The search stops as soon as no remaining bound
 //! beats the best tree found. This is exact; its worst case is O(n³) (every candidate tried),
@@ -29,8 +32,9 @@
 //! 3-word case (a deletion whose cheapest alternative arc closes a cycle), so the exact search
 //! ships until that rule is re-derived and passes the same checks.
 //!
-//! Ties: a group takes the in-arc with the smallest slot among equal scores; among single-root
-//! candidates of equal score the first tried wins (highest bound, then smallest position).
+//! Ties: a word or group takes the in-arc whose head has the smallest position among equal
+//! scores; among single-root candidates of equal score the first tried wins (highest bound, then
+//! smallest position).
 
 use super::{RootConstraint, ScoreMatrix};
 
@@ -38,33 +42,19 @@ const NONE: usize = usize::MAX;
 
 /// Best arborescence rooted at 0: `heads[m]` for `m` in `1..=n` (`heads[0] = 0`).
 pub fn decode(scores: &ScoreMatrix, root: RootConstraint) -> Vec<usize> {
-    let unconstrained = solve(scores, None);
+    let first = BestWordHeads::new(scores);
+    let unconstrained = Solver::new(scores, &first, None).solve();
     let root_children = unconstrained.iter().skip(1).filter(|&&h| h == 0).count();
     if root == RootConstraint::MultiRoot || root_children == 1 {
         return unconstrained;
     }
     let n = scores.words();
     let ceiling = scores.tree_score(&unconstrained);
-    // Best word (non-root) head of each word, and their sum: a relaxation of every tree.
-    let best_word_head: Vec<f64> = (0..=n)
-        .map(|m| {
-            if m == 0 {
-                0.0
-            } else {
-                (1..=n)
-                    .map(|h| scores.get(h, m))
-                    .fold(f64::NEG_INFINITY, f64::max)
-            }
-        })
-        .collect();
-    let relaxed: f64 = best_word_head[1..].iter().sum();
+    // Every word's best word (non-root) head, summed: a relaxation of every tree.
+    let relaxed: f64 = first.best[1..].iter().map(|&(score, _)| score).sum();
     let mut candidates: Vec<(f64, usize)> = (1..=n)
         .map(|r| {
-            let bound = if n == 1 {
-                scores.get(0, r)
-            } else {
-                relaxed - best_word_head[r] + scores.get(0, r)
-            };
+            let bound = relaxed - first.best[r].0 + scores.get(0, r);
             (bound.min(ceiling), r)
         })
         .collect();
@@ -77,7 +67,7 @@ pub fn decode(scores: &ScoreMatrix, root: RootConstraint) -> Vec<usize> {
         {
             break;
         }
-        let heads = solve(scores, Some(r));
+        let heads = Solver::new(scores, &first, Some(r)).solve();
         let score = scores.tree_score(&heads);
         if best.as_ref().is_none_or(|(b, _)| score > *b) {
             best = Some((score, heads));
@@ -86,22 +76,29 @@ pub fn decode(scores: &ScoreMatrix, root: RootConstraint) -> Vec<usize> {
     best.map(|(_, heads)| heads).unwrap_or(unconstrained)
 }
 
-/// Unconstrained maximum arborescence, optionally with `only_root_child` the sole word the root
-/// may take.
-fn solve(scores: &ScoreMatrix, only_root_child: Option<usize>) -> Vec<usize> {
-    let mut graph = Graph::new(scores);
-    if let Some(r) = only_root_child {
-        for v in 1..graph.side {
-            if v != r {
-                graph.incoming[v * graph.side] = f64::NEG_INFINITY;
-            }
-        }
-    }
-    graph.contract_all();
-    graph.expand()
+/// Each word's best non-root head (smallest position among ties), from one pass over the rows.
+struct BestWordHeads {
+    best: Vec<(f64, usize)>,
 }
 
-/// Union-find with path halving; the representative of a set is chosen by the caller.
+impl BestWordHeads {
+    fn new(scores: &ScoreMatrix) -> Self {
+        let side = scores.side();
+        let matrix = scores.as_slice();
+        let mut best = vec![(f64::NEG_INFINITY, NONE); side];
+        for h in 1..side {
+            let row = &matrix[h * side..(h + 1) * side];
+            for (m, &score) in row.iter().enumerate().skip(1) {
+                if score > best[m].0 {
+                    best[m] = (score, h);
+                }
+            }
+        }
+        BestWordHeads { best }
+    }
+}
+
+/// Union-find with path halving; the caller chooses which representative absorbs the other.
 struct UnionFind {
     parent: Vec<usize>,
 }
@@ -127,98 +124,119 @@ impl UnionFind {
     }
 }
 
-struct Graph {
+/// An in-arc: original head and modifier, and its reduced score.
+#[derive(Clone, Copy)]
+struct Arc {
+    head: usize,
+    modifier: usize,
+    score: f64,
+}
+
+/// One run of the contraction and expansion phases. Groups are numbered like nodes: the
+/// original positions `0..=n`, then one new id per contraction.
+struct Solver<'a> {
+    scores: &'a ScoreMatrix,
+    first: &'a BestWordHeads,
     side: usize,
-    /// `incoming[v * side + u]`: best reduced score of an arc from group `u` into group `v`.
-    incoming: Vec<f64>,
-    /// Original head and modifier of that arc.
-    arc_head: Vec<u32>,
-    arc_modifier: Vec<u32>,
-    /// Per slot: is it a live group (slot 0, the root, is never in `pending`)?
-    alive: Vec<bool>,
-    /// Per slot: logical node id of the group it holds (originals are `0..=n`, contractions
-    /// get `n+1, n+2, …`).
-    node_of_slot: Vec<usize>,
-    /// Per slot: the chosen in-arc (original head, original modifier) and its reduced score.
-    chosen: Vec<Option<(usize, usize, f64)>>,
-    /// Groups: original vertex → slot of the group holding it.
+    /// `Some(r)`: the root may only take word `r`.
+    only_root_child: Option<usize>,
+    /// Original position or group → the group that now contains it.
     groups: UnionFind,
-    /// Weak components over slots (arcs from the root are not merged).
+    /// Weak components of groups (arcs from the root do not join them).
     weak: UnionFind,
-    /// Per logical node: parent contraction, and the in-arc it keeps after expansion.
-    node_parent: Vec<usize>,
-    node_arc: Vec<(usize, usize)>,
-    /// Logical ids of contractions, in creation order, with their member node ids.
+    chosen: Vec<Option<Arc>>,
+    /// Incoming rows of contracted groups: reduced score by original head, and the modifier.
+    rows: Vec<Option<(Vec<f64>, Vec<u32>)>>,
+    /// Per group: the contraction it was merged into (not path-compressed), and the in-arc it
+    /// keeps after expansion.
+    parent: Vec<usize>,
+    kept: Vec<(usize, usize)>,
+    /// Ids of contractions in creation order, with their members.
     contractions: Vec<(usize, Vec<usize>)>,
-    /// Slots waiting to choose an in-arc (a stack; popped in increasing slot order initially).
+    /// Groups waiting to choose an in-arc (popped in increasing position order initially).
     pending: Vec<usize>,
 }
 
-impl Graph {
-    fn new(scores: &ScoreMatrix) -> Self {
+impl<'a> Solver<'a> {
+    fn new(
+        scores: &'a ScoreMatrix,
+        first: &'a BestWordHeads,
+        only_root_child: Option<usize>,
+    ) -> Self {
         let side = scores.side();
-        let mut incoming = vec![f64::NEG_INFINITY; side * side];
-        let mut arc_head = vec![0u32; side * side];
-        let mut arc_modifier = vec![0u32; side * side];
-        for v in 1..side {
-            for u in 0..side {
-                incoming[v * side + u] = scores.get(u, v);
-                arc_head[v * side + u] = u as u32;
-                arc_modifier[v * side + u] = v as u32;
-            }
-        }
-        let max_nodes = 2 * side;
-        Graph {
+        let ids = 2 * side;
+        Solver {
+            scores,
+            first,
             side,
-            incoming,
-            arc_head,
-            arc_modifier,
-            alive: (0..side).map(|s| s != 0).collect(),
-            node_of_slot: (0..side).collect(),
-            chosen: vec![None; side],
-            groups: UnionFind::new(side),
-            weak: UnionFind::new(side),
-            node_parent: vec![NONE; max_nodes],
-            node_arc: vec![(0, 0); max_nodes],
+            only_root_child,
+            groups: UnionFind::new(ids),
+            weak: UnionFind::new(ids),
+            chosen: vec![None; ids],
+            rows: vec![None; ids],
+            parent: vec![NONE; ids],
+            kept: vec![(0, 0); ids],
             contractions: Vec::new(),
             pending: (1..side).rev().collect(),
         }
     }
 
-    fn row(&self, slot: usize) -> &[f64] {
-        &self.incoming[slot * self.side..(slot + 1) * self.side]
+    fn root_allowed(&self, word: usize) -> bool {
+        self.only_root_child.is_none_or(|r| r == word)
     }
 
-    /// Slot of the best in-arc of `v` (first among equals), or `None` if every in-arc is −∞.
-    fn best_in(&self, v: usize) -> Option<usize> {
-        let mut best = f64::NEG_INFINITY;
-        let mut best_u = None;
-        for (u, &score) in self.row(v).iter().enumerate() {
-            if score > best {
-                best = score;
-                best_u = Some(u);
+    fn solve(mut self) -> Vec<usize> {
+        self.contract_all();
+        self.expand()
+    }
+
+    /// Best in-arc of a group: precomputed for original words, a row scan for contractions.
+    fn best_in(&mut self, group: usize) -> Option<Arc> {
+        if group < self.side {
+            let (word_score, word_head) = self.first.best[group];
+            let root_score = self.scores.get(0, group);
+            if self.root_allowed(group) && root_score >= word_score {
+                return Some(Arc {
+                    head: 0,
+                    modifier: group,
+                    score: root_score,
+                });
+            }
+            return (word_head != NONE).then_some(Arc {
+                head: word_head,
+                modifier: group,
+                score: word_score,
+            });
+        }
+        let (values, modifiers) = self.rows[group].take().expect("contracted group has a row");
+        let mut best: Option<Arc> = None;
+        for (head, &score) in values.iter().enumerate() {
+            if score > best.map_or(f64::NEG_INFINITY, |b| b.score)
+                && self.groups.find(head) != group
+            {
+                best = Some(Arc {
+                    head,
+                    modifier: modifiers[head] as usize,
+                    score,
+                });
             }
         }
-        best_u
+        self.rows[group] = Some((values, modifiers));
+        best
     }
 
     fn contract_all(&mut self) {
         while let Some(v) = self.pending.pop() {
-            let Some(u) = self.best_in(v) else {
-                // Unreachable: every word keeps finite in-arcs from the other words (only root arcs
-                // are ever removed), so some arc is always available.
+            let Some(arc) = self.best_in(v) else {
+                // Unreachable: every word keeps finite in-arcs from the other words (only root
+                // arcs are ever withheld), so some arc is always available.
                 continue;
             };
-            let cell = v * self.side + u;
-            let arc = (
-                self.arc_head[cell] as usize,
-                self.arc_modifier[cell] as usize,
-                self.incoming[cell],
-            );
             self.chosen[v] = Some(arc);
-            if u == 0 {
+            if arc.head == 0 {
                 continue;
             }
+            let u = self.groups.find(arc.head);
             let (weak_u, weak_v) = (self.weak.find(u), self.weak.find(v));
             if weak_u != weak_v {
                 self.weak.attach(weak_v, weak_u);
@@ -229,109 +247,94 @@ impl Graph {
             let mut x = u;
             while x != v {
                 cycle.push(x);
-                let (head, _, _) = self.chosen[x].expect("a group on a cycle has an in-arc");
+                let head = self.chosen[x]
+                    .expect("a group on a cycle has an in-arc")
+                    .head;
                 x = self.groups.find(head);
             }
             self.contract(&cycle);
         }
     }
 
-    /// Contracts the groups in `cycle` (slots; `cycle[0]` keeps the merged group).
+    /// Merges the groups of `cycle` into a new group with its own incoming row.
     fn contract(&mut self, cycle: &[usize]) {
         let side = self.side;
-        let keep = cycle[0];
-        let mut in_cycle = vec![false; side];
-        for &c in cycle {
-            in_cycle[c] = true;
-        }
-        // Merged in-arcs: for every outside u, max over members m of incoming[m][u] − chosen[m].
-        let mut merged = vec![f64::NEG_INFINITY; side];
-        let mut merged_head = vec![0u32; side];
-        let mut merged_modifier = vec![0u32; side];
-        for &m in cycle {
-            let reduce = self.chosen[m].expect("cycle member has an in-arc").2;
-            for u in 0..side {
-                if in_cycle[u] {
-                    continue;
+        let id = side + self.contractions.len();
+        let mut values = vec![f64::NEG_INFINITY; side];
+        let mut modifiers = vec![0u32; side];
+        let matrix = self.scores.as_slice();
+        for &member in cycle {
+            let reduce = self.chosen[member]
+                .expect("cycle member has an in-arc")
+                .score;
+            if member < side {
+                // An original word: its column of the score matrix.
+                let root_score = if self.root_allowed(member) {
+                    matrix[member]
+                } else {
+                    f64::NEG_INFINITY
+                };
+                for head in 0..side {
+                    let raw = if head == 0 {
+                        root_score
+                    } else {
+                        matrix[head * side + member]
+                    };
+                    let score = raw - reduce;
+                    if score > values[head] {
+                        values[head] = score;
+                        modifiers[head] = member as u32;
+                    }
                 }
-                let cell = m * side + u;
-                let score = self.incoming[cell] - reduce;
-                if score > merged[u] {
-                    merged[u] = score;
-                    merged_head[u] = self.arc_head[cell];
-                    merged_modifier[u] = self.arc_modifier[cell];
+            } else {
+                let (member_values, member_modifiers) = self.rows[member]
+                    .take()
+                    .expect("contracted member has a row");
+                for head in 0..side {
+                    let score = member_values[head] - reduce;
+                    if score > values[head] {
+                        values[head] = score;
+                        modifiers[head] = member_modifiers[head];
+                    }
                 }
             }
         }
-        // Merged out-arcs: for every live outside group x, max over members of incoming[x][m].
-        for x in 1..side {
-            if !self.alive[x] || in_cycle[x] {
-                continue;
-            }
-            let row = x * side;
-            let mut best = f64::NEG_INFINITY;
-            let mut best_cell = row + keep;
-            for &m in cycle {
-                let score = self.incoming[row + m];
-                if score > best {
-                    best = score;
-                    best_cell = row + m;
-                }
-            }
-            let (head, modifier) = (self.arc_head[best_cell], self.arc_modifier[best_cell]);
-            for &m in cycle {
-                self.incoming[row + m] = f64::NEG_INFINITY;
-            }
-            self.incoming[row + keep] = best;
-            self.arc_head[row + keep] = head;
-            self.arc_modifier[row + keep] = modifier;
-        }
-        let row = keep * side;
-        self.incoming[row..row + side].copy_from_slice(&merged);
-        self.arc_head[row..row + side].copy_from_slice(&merged_head);
-        self.arc_modifier[row..row + side].copy_from_slice(&merged_modifier);
-        for &m in &cycle[1..] {
-            let row = m * side;
-            self.incoming[row..row + side].fill(f64::NEG_INFINITY);
-            self.alive[m] = false;
-        }
-        // Book-keeping for the expansion.
-        let node = self.contractions.len() + side;
+        let weak_root = self.weak.find(cycle[0]);
+        self.weak.attach(id, weak_root);
         let mut members = Vec::with_capacity(cycle.len());
-        for &m in cycle {
-            let member = self.node_of_slot[m];
-            let (head, modifier, _) = self.chosen[m].expect("cycle member has an in-arc");
-            self.node_parent[member] = node;
-            self.node_arc[member] = (head, modifier);
+        for &member in cycle {
+            let arc = self.chosen[member]
+                .take()
+                .expect("cycle member has an in-arc");
+            self.parent[member] = id;
+            self.kept[member] = (arc.head, arc.modifier);
+            self.groups.attach(member, id);
             members.push(member);
-            if m != keep {
-                self.groups.attach(m, keep);
-            }
-            self.chosen[m] = None;
         }
-        self.contractions.push((node, members));
-        self.node_of_slot[keep] = node;
-        self.pending.push(keep);
+        self.rows[id] = Some((values, modifiers));
+        self.contractions.push((id, members));
+        self.pending.push(id);
     }
 
     fn expand(&mut self) -> Vec<usize> {
-        for v in 1..self.side {
-            if let (true, Some((head, modifier, _))) = (self.alive[v], self.chosen[v]) {
-                self.node_arc[self.node_of_slot[v]] = (head, modifier);
+        let last = self.side + self.contractions.len();
+        for group in 1..last {
+            if let (NONE, Some(arc)) = (self.parent[group], self.chosen[group]) {
+                self.kept[group] = (arc.head, arc.modifier);
             }
         }
-        for (node, _members) in self.contractions.iter().rev() {
-            let (head, modifier) = self.node_arc[*node];
+        for (id, _members) in self.contractions.iter().rev() {
+            let (head, modifier) = self.kept[*id];
             // The member of this contraction that contains the arc's modifier.
             let mut member = modifier;
-            while self.node_parent[member] != *node {
-                member = self.node_parent[member];
+            while self.parent[member] != *id {
+                member = self.parent[member];
             }
-            self.node_arc[member] = (head, modifier);
+            self.kept[member] = (head, modifier);
         }
         let mut heads = vec![0usize; self.side];
         for m in 1..self.side {
-            heads[m] = self.node_arc[m].0;
+            heads[m] = self.kept[m].0;
         }
         heads
     }

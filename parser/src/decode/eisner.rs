@@ -109,9 +109,11 @@ fn fill_inline(charts: &mut Charts, scores: &ScoreMatrix, root: RootConstraint) 
         incomplete_left_t: il_t,
         ..
     } = charts;
-    for width in 1..side {
-        for s in 0..side - width {
-            let t = s + width;
+    // Right end outermost, start descending: every span (s, t) needs only spans ending before t
+    // or starting after s, and the transposed rows `t` it reads stay in cache for the whole
+    // inner loop.
+    for t in 1..side {
+        for s in (0..t).rev() {
             // Incomplete spans: split r in s..t, CR[s][r] + CL[r+1][t].
             let inner = if s == 0 && single_root {
                 cr[0] + cl_t[t * side + 1]

@@ -46,28 +46,56 @@ fn max_plus_avx2(a: &[f64], b: &[f64]) -> f64 {
 
 /// The kernel itself; `#[inline(always)]` so each caller compiled with a wider target feature
 /// gets its own vector code.
+///
+/// Short inputs dominate Eisner's chart (half the spans are narrower than n/2), so the tail is
+/// not done one element at a time: since max is idempotent, the last full block is simply read
+/// again, overlapping the previous one.
 #[inline(always)]
 pub(crate) fn max_plus_inline(a: &[f64], b: &[f64]) -> f64 {
     let len = a.len().min(b.len());
     let (a, b) = (&a[..len], &b[..len]);
-    const LANES: usize = 8;
-    let mut acc = [f64::NEG_INFINITY; LANES];
-    let mut chunks_a = a.chunks_exact(LANES);
-    let mut chunks_b = b.chunks_exact(LANES);
-    for (ca, cb) in (&mut chunks_a).zip(&mut chunks_b) {
-        for lane in 0..LANES {
-            let sum = ca[lane] + cb[lane];
-            // `if >` rather than f64::max: no NaN handling needed (inputs are finite or −∞),
-            // and this form maps onto a single vector max instruction.
-            acc[lane] = if sum > acc[lane] { sum } else { acc[lane] };
+    if len >= 8 {
+        let mut acc = [f64::NEG_INFINITY; 8];
+        let mut chunks_a = a.chunks_exact(8);
+        let mut chunks_b = b.chunks_exact(8);
+        for (ca, cb) in (&mut chunks_a).zip(&mut chunks_b) {
+            accumulate(&mut acc, ca, cb);
         }
+        if !chunks_a.remainder().is_empty() {
+            accumulate(&mut acc, &a[len - 8..], &b[len - 8..]);
+        }
+        return reduce(&acc);
+    }
+    if len >= 4 {
+        let mut acc = [f64::NEG_INFINITY; 4];
+        accumulate(&mut acc, &a[..4], &b[..4]);
+        accumulate(&mut acc, &a[len - 4..], &b[len - 4..]);
+        return reduce(&acc);
     }
     let mut best = f64::NEG_INFINITY;
-    for (x, y) in chunks_a.remainder().iter().zip(chunks_b.remainder()) {
+    for (x, y) in a.iter().zip(b) {
         let sum = x + y;
         best = if sum > best { sum } else { best };
     }
-    for value in acc {
+    best
+}
+
+/// `acc[i] = max(acc[i], a[i] + b[i])` for one block of `N` lanes.
+#[inline(always)]
+fn accumulate<const N: usize>(acc: &mut [f64; N], a: &[f64], b: &[f64]) {
+    let (a, b) = (&a[..N], &b[..N]);
+    for lane in 0..N {
+        let sum = a[lane] + b[lane];
+        // `if >` rather than f64::max: inputs are finite or −∞ (no NaN), and this form maps
+        // onto a single vector max instruction.
+        acc[lane] = if sum > acc[lane] { sum } else { acc[lane] };
+    }
+}
+
+#[inline(always)]
+fn reduce(values: &[f64]) -> f64 {
+    let mut best = f64::NEG_INFINITY;
+    for &value in values {
         best = if value > best { value } else { best };
     }
     best
