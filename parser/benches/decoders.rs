@@ -166,11 +166,11 @@ fn benches(c: &mut Criterion) {
     let _ = Algorithm::Projective;
 }
 
-/// Slope of ln(time) against ln(n) over the sizes ≥ 32 that were measured.
-fn exponent(series: &str) -> Option<(f64, usize)> {
+/// Slope of ln(time) against ln(n) over the measured sizes ≥ `from`.
+fn exponent(series: &str, from: usize) -> Option<(f64, usize)> {
     let points: Vec<(f64, f64)> = SIZES
         .iter()
-        .filter(|&&n| n >= 32)
+        .filter(|&&n| n >= from)
         .filter_map(|&n| median(series, n).map(|t| ((n as f64).ln(), t.ln())))
         .collect();
     if points.len() < 3 {
@@ -205,7 +205,7 @@ fn summary() {
     };
     println!(
         "{:<48} {:>10} {:>10} {:>10} {:>10} {:>10}  exponent (n≥32)",
-        "series", "n=32", "n=128", "n=256", "n=512", ""
+        "series", "n=32", "n=128", "n=256", "n=512", "exp n≥128"
     );
     for name in &series {
         if name.starts_with("max-plus") {
@@ -213,7 +213,9 @@ fn summary() {
         }
         let cell =
             |n: usize| median(name, n).map_or("-".to_string(), |t| format!("{:.1}µs", t * 1e6));
-        let fit = exponent(name).map_or("-".to_string(), |(e, k)| format!("{e:.2} ({k} sizes)"));
+        let fit =
+            exponent(name, 32).map_or("-".to_string(), |(e, k)| format!("{e:.2} ({k} sizes)"));
+        let fit_large = exponent(name, 128).map_or("-".to_string(), |(e, _)| format!("{e:.2}"));
         println!(
             "{:<48} {:>10} {:>10} {:>10} {:>10} {:>10}  {}",
             name,
@@ -221,7 +223,7 @@ fn summary() {
             cell(128),
             cell(256),
             cell(512),
-            "",
+            fit_large,
             fit
         );
     }
