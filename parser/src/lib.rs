@@ -1,8 +1,16 @@
-//! The arcwright parsing core: treebank I/O (CoNLL-U), exact decoders and tree marginals.
+//! The arcwright parsing core: treebank I/O (CoNLL-U), features, training, tagging, exact
+//! decoders, tree marginals and evaluation.
 //!
 //! This crate does no networking and knows nothing about gRPC, HTTP, the model store or async
 //! runtimes; the service and the command line are built on top of it.
 
 pub mod conllu;
 pub mod decode;
+pub mod eval;
+pub mod features;
 pub mod marginals;
+pub mod model;
+pub mod perceptron;
+pub mod tagger;
+pub mod text;
+pub mod train;

@@ -20,8 +20,75 @@ pub struct Cli {
 pub enum Command {
     /// Decode the best tree of a JSON arc-score matrix read from stdin.
     Decode(DecodeOptions),
-    /// Check, inspect or rewrite CoNLL-U files.
+    /// Check, inspect, split or rewrite CoNLL-U files.
     Conllu(ConlluOptions),
+    /// Train a tagger and a labeled parser from CoNLL-U; write a model directory.
+    Train(TrainOptions),
+    /// Evaluate a model on a gold CoNLL-U file (JSON on stdout, a table on stderr).
+    Eval(EvalOptions),
+    /// Parse stdin (CoNLL-U or text) to CoNLL-U on stdout.
+    Parse(ParseOptions),
+}
+
+#[derive(Debug, Args)]
+pub struct TrainOptions {
+    /// Training treebank (CoNLL-U).
+    #[arg(long)]
+    pub train: PathBuf,
+    /// Development treebank for early stopping and per-epoch UAS.
+    #[arg(long)]
+    pub dev: Option<PathBuf>,
+    /// Output model directory.
+    #[arg(long)]
+    pub out: PathBuf,
+    #[arg(long, default_value_t = 10)]
+    pub epochs: usize,
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+    /// Training threads (default: all cores).
+    #[arg(long)]
+    pub threads: Option<usize>,
+    /// Decoder used in training and as the model's default (default: non-projective when the
+    /// training trees have crossing arcs).
+    #[arg(long, value_enum)]
+    pub decoder: Option<AlgorithmArg>,
+    /// log2 of the arc weight table size (10..=28).
+    #[arg(long, default_value_t = 22, value_parser = clap::value_parser!(u32).range(10..=28))]
+    pub hash_bits: u32,
+    /// Do not use FEATS morphology.
+    #[arg(long)]
+    pub no_morphology: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct EvalOptions {
+    #[arg(long)]
+    pub model: PathBuf,
+    #[arg(long)]
+    pub gold: PathBuf,
+    #[arg(long, value_enum)]
+    pub decoder: Option<AlgorithmArg>,
+    /// Use the gold UPOS and FEATS instead of predicting them.
+    #[arg(long)]
+    pub gold_tags: bool,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum InputFormat {
+    /// CoNLL-U; FORM is read, UPOS/HEAD/DEPREL are filled in.
+    Conllu,
+    /// Plain text: one sentence per line, tokens separated by white space.
+    Text,
+}
+
+#[derive(Debug, Args)]
+pub struct ParseOptions {
+    #[arg(long)]
+    pub model: PathBuf,
+    #[arg(long, value_enum)]
+    pub decoder: Option<AlgorithmArg>,
+    #[arg(long, value_enum, default_value = "conllu")]
+    pub input: InputFormat,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -73,4 +140,11 @@ pub enum ConlluAction {
     Fields { file: PathBuf },
     /// Read a file and write it back to stdout (byte-identical for a valid file).
     Rewrite { file: PathBuf },
+    /// Split files into train/dev/test by sentence index modulo 10 (0 → test, 1 → dev, rest →
+    /// train), counting sentences across the files in the order given.
+    Split {
+        files: Vec<PathBuf>,
+        #[arg(long)]
+        out: PathBuf,
+    },
 }

@@ -14,6 +14,9 @@ fn main() -> ExitCode {
     let outcome = match args.command {
         cli::Command::Decode(options) => commands::decode::run(&options),
         cli::Command::Conllu(options) => commands::conllu::run(&options),
+        cli::Command::Train(options) => commands::train::run(&options),
+        cli::Command::Eval(options) => commands::eval::run(&options),
+        cli::Command::Parse(options) => commands::parse::run(&options),
     };
     match outcome {
         Ok(()) => ExitCode::SUCCESS,

@@ -15,6 +15,7 @@ pub fn run(options: &ConlluOptions) -> Result<(), Failure> {
         ConlluAction::Check { files, lenient } => check(files, *lenient),
         ConlluAction::Fields { file } => fields(file),
         ConlluAction::Rewrite { file } => rewrite(file),
+        ConlluAction::Split { files, out } => split(files, out),
     }
 }
 
@@ -103,4 +104,36 @@ fn rewrite(path: &Path) -> Result<(), Failure> {
     out.write_all(document.to_conllu().as_bytes())
         .map_err(Failure::runtime)?;
     out.flush().map_err(Failure::runtime)
+}
+
+fn split(files: &[std::path::PathBuf], out: &Path) -> Result<(), Failure> {
+    let mut parts = [
+        Document::default(),
+        Document::default(),
+        Document::default(),
+    ];
+    let mut index = 0usize;
+    for path in files {
+        for sentence in read_strict(path)?.sentences {
+            if sentence.is_empty() {
+                continue;
+            }
+            let part = match index % 10 {
+                0 => 2,
+                1 => 1,
+                _ => 0,
+            };
+            parts[part].sentences.push(sentence);
+            index += 1;
+        }
+    }
+    std::fs::create_dir_all(out)
+        .map_err(|e| Failure::runtime(format!("{}: {e}", out.display())))?;
+    for (name, document) in ["train", "dev", "test"].iter().zip(&parts) {
+        let path = out.join(format!("{name}.conllu"));
+        std::fs::write(&path, document.to_conllu())
+            .map_err(|e| Failure::runtime(format!("{}: {e}", path.display())))?;
+        println!("{}: {} sentences", path.display(), document.sentences.len());
+    }
+    Ok(())
 }

@@ -3,6 +3,9 @@
 
 pub mod conllu;
 pub mod decode;
+pub mod eval;
+pub mod parse;
+pub mod train;
 
 /// A command's failure: what to tell the user and which exit code to use.
 #[derive(Debug)]
@@ -27,4 +30,22 @@ impl Failure {
             exit_code: 1,
         }
     }
+}
+
+/// Reads a CoNLL-U file strictly (errors name file, line and column).
+pub fn read_treebank(
+    path: &std::path::Path,
+) -> Result<arcwright_parser::conllu::Document, Failure> {
+    let bytes = std::fs::read(path)
+        .map_err(|e| Failure::runtime(format!("{}: cannot read: {e}", path.display())))?;
+    arcwright_parser::conllu::read_bytes(&path.display().to_string(), &bytes)
+        .map_err(Failure::bad_input)
+}
+
+/// Peak resident memory of this process in MiB (Linux), if known.
+pub fn peak_memory_mib() -> Option<f64> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kib: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kib / 1024.0)
 }

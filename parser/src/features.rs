@@ -1,0 +1,274 @@
+//! Hashed features for arcs, labels and tags.
+//!
+//! Arc features follow the first-order set of McDonald, Crammer & Pereira (2005): head and
+//! modifier word/tag unigrams and bigrams, the tags in between, and the tags around head and
+//! modifier; each is emitted twice, plain and conjoined with direction and binned distance. On top:
+//! suffix and word-shape backoff for rare and unknown words, and morphology from FEATS (case,
+//! possession, person/number), which carries much of the attachment signal in languages such as
+//! Turkish. Features are hashed (Weinberger et al. 2009) into a table of `2^hash_bits` weights.
+//!
+//! Hot path: per-token parts (word, tag, suffix, shape, morphology, neighbours' tags) are hashed
+//! once per sentence; an arc's feature index is then a cheap mix of a template id and two parts.
+//! "In between" tags use prefix counts over the tag inventory, so each arc costs O(tags) rather
+//! than O(distance).
+
+use crate::text;
+
+/// Feature options stored with a model.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct FeatureConfig {
+    /// log2 of the parser's weight-table size.
+    pub hash_bits: u32,
+    /// Use FEATS morphology (case, possession, person/number) in arc features.
+    pub morphology: bool,
+}
+
+impl Default for FeatureConfig {
+    fn default() -> Self {
+        FeatureConfig {
+            hash_bits: 22,
+            morphology: true,
+        }
+    }
+}
+
+/// A token as the feature extractor sees it.
+#[derive(Debug, Clone)]
+pub struct TokenView<'a> {
+    pub form: &'a str,
+    pub tag: &'a str,
+    /// Morphology summary, e.g. "Case=Dat|Possessive=P3sg" (empty when none or not used).
+    pub morph: &'a str,
+}
+
+/// 64-bit mixing (a multiply-xorshift finaliser, as in SplitMix64).
+#[inline(always)]
+pub(crate) fn mix(a: u64, b: u64) -> u64 {
+    let mut z = a ^ b.wrapping_mul(0x9E37_79B9_7F4A_7C15);
+    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+    z ^ (z >> 31)
+}
+
+/// FNV-1a of a string (stable across runs and machines, unlike the std hasher).
+pub(crate) fn hash_str(text: &str) -> u64 {
+    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+    for byte in text.bytes() {
+        h ^= u64::from(byte);
+        h = h.wrapping_mul(0x0000_0100_0000_01b3);
+    }
+    h
+}
+
+#[derive(Debug, Clone, Copy, Default)]
+struct Parts {
+    word: u64,
+    tag: u64,
+    word_tag: u64,
+    suffix: u64,
+    shape: u64,
+    case: u64,
+    morph: u64,
+    tag_id: usize,
+}
+
+/// Per-sentence precomputation for arc scoring.
+#[derive(Debug)]
+pub struct SentenceFeatures {
+    parts: Vec<Parts>,
+    /// `between[t * (n+2) + i]` = number of tokens with tag id t among positions < i.
+    between: Vec<u16>,
+    tag_count: usize,
+    morphology: bool,
+}
+
+const ROOT: u64 = 0x5A5A_0000_0000_0001;
+const EDGE: u64 = 0x5A5A_0000_0000_0002;
+
+/// Distance bins: 1, 2, 3, 4, 5, 6–10, 11+.
+#[inline(always)]
+fn distance_bin(distance: usize) -> u64 {
+    match distance {
+        0..=5 => distance as u64,
+        6..=10 => 6,
+        _ => 7,
+    }
+}
+
+impl SentenceFeatures {
+    /// `tag_ids` maps each token's tag to a small id (< `tag_count`) for in-between counts.
+    pub fn new(
+        tokens: &[TokenView<'_>],
+        tag_ids: &dyn Fn(&str) -> usize,
+        tag_count: usize,
+        config: FeatureConfig,
+    ) -> Self {
+        let n = tokens.len();
+        let mut parts = Vec::with_capacity(n + 1);
+        parts.push(Parts {
+            word: ROOT,
+            tag: ROOT,
+            word_tag: ROOT,
+            suffix: ROOT,
+            shape: ROOT,
+            case: ROOT,
+            morph: ROOT,
+            tag_id: tag_count,
+        });
+        for token in tokens {
+            let lower = text::lowercase(token.form);
+            let word = hash_str(&lower);
+            let tag = hash_str(token.tag);
+            let case = if config.morphology {
+                hash_str(text::feature_value(token.morph, "Case"))
+            } else {
+                0
+            };
+            parts.push(Parts {
+                word,
+                tag,
+                word_tag: mix(word, tag),
+                suffix: hash_str(text::suffix(&lower, 3)),
+                shape: hash_str(&text::shape(token.form)),
+                case,
+                morph: if config.morphology {
+                    hash_str(token.morph)
+                } else {
+                    0
+                },
+                tag_id: tag_ids(token.tag).min(tag_count.saturating_sub(1)),
+            });
+        }
+        let stride = n + 2;
+        let mut between = vec![0u16; (tag_count + 1) * stride];
+        for i in 0..=n {
+            for t in 0..=tag_count {
+                between[t * stride + i + 1] =
+                    between[t * stride + i] + u16::from(parts[i].tag_id == t);
+            }
+        }
+        SentenceFeatures {
+            parts,
+            between,
+            tag_count,
+            morphology: config.morphology,
+        }
+    }
+
+    /// Number of positions including the root.
+    pub fn side(&self) -> usize {
+        self.parts.len()
+    }
+
+    fn tag_at(&self, i: isize) -> u64 {
+        if i < 0 || i as usize >= self.parts.len() {
+            EDGE
+        } else {
+            self.parts[i as usize].tag
+        }
+    }
+
+    /// Calls `emit` with the hash of every feature of the arc `head → modifier`.
+    #[inline]
+    pub fn arc_features(&self, head: usize, modifier: usize, mut emit: impl FnMut(u64)) {
+        let h = &self.parts[head];
+        let m = &self.parts[modifier];
+        let (hi, mi) = (head as isize, modifier as isize);
+        let direction = u64::from(head < modifier);
+        let distance = head.abs_diff(modifier);
+        let dd = 1 + direction * 8 + distance_bin(distance);
+        let mut both = |template: u64, value: u64| {
+            let base = mix(template, value);
+            emit(base);
+            emit(mix(base, dd));
+        };
+        both(1, h.word_tag);
+        both(2, h.word);
+        both(3, h.tag);
+        both(4, m.word_tag);
+        both(5, m.word);
+        both(6, m.tag);
+        both(7, mix(h.word_tag, m.word_tag));
+        both(8, mix(h.tag, m.word_tag));
+        both(9, mix(h.word, m.word_tag));
+        both(10, mix(h.word_tag, m.tag));
+        both(11, mix(h.word_tag, m.word));
+        both(12, mix(h.word, m.word));
+        both(13, mix(h.tag, m.tag));
+        // Surrounding tags.
+        let (h_prev, h_next, m_prev, m_next) = (
+            self.tag_at(hi - 1),
+            self.tag_at(hi + 1),
+            self.tag_at(mi - 1),
+            self.tag_at(mi + 1),
+        );
+        both(14, mix(mix(h.tag, h_next), mix(m_prev, m.tag)));
+        both(15, mix(mix(h_prev, h.tag), mix(m_prev, m.tag)));
+        both(16, mix(mix(h.tag, h_next), mix(m.tag, m_next)));
+        both(17, mix(mix(h_prev, h.tag), mix(m.tag, m_next)));
+        // Backoff for rare words: suffixes and shapes.
+        both(18, mix(h.suffix, m.suffix));
+        both(19, mix(h.tag, m.suffix));
+        both(20, mix(h.suffix, m.tag));
+        both(21, mix(h.shape, m.shape));
+        // Morphology.
+        if self.morphology {
+            both(22, mix(h.tag, m.case));
+            both(23, mix(h.case, m.case));
+            both(24, mix(h.morph, m.tag));
+            both(25, mix(h.tag, m.morph));
+            both(26, mix(h.word, m.case));
+        }
+        // In between: one feature per tag present strictly between head and modifier.
+        let (lo, hi_pos) = if head < modifier {
+            (head, modifier)
+        } else {
+            (modifier, head)
+        };
+        if hi_pos > lo + 1 {
+            let stride = self.parts.len() + 1;
+            let pair = mix(h.tag, m.tag);
+            for t in 0..=self.tag_count {
+                let count = self.between[t * stride + hi_pos] - self.between[t * stride + lo + 1];
+                if count > 0 {
+                    emit(mix(mix(27, pair), t as u64));
+                }
+            }
+        }
+    }
+
+    /// Label features of the arc `head → modifier` (label-independent; the labeler conjoins them
+    /// with each label).
+    pub fn label_features(&self, head: usize, modifier: usize, mut emit: impl FnMut(u64)) {
+        let h = &self.parts[head];
+        let m = &self.parts[modifier];
+        let direction = u64::from(head < modifier);
+        let dd = 1 + direction * 8 + distance_bin(head.abs_diff(modifier));
+        emit(mix(101, m.word));
+        emit(mix(102, m.tag));
+        emit(mix(103, h.tag));
+        emit(mix(104, h.word));
+        emit(mix(105, mix(h.tag, m.tag)));
+        emit(mix(106, mix(mix(h.tag, m.tag), dd)));
+        emit(mix(107, mix(h.word, m.tag)));
+        emit(mix(108, mix(h.tag, m.word)));
+        emit(mix(109, m.suffix));
+        emit(mix(110, mix(m.tag, self.tag_at(modifier as isize + 1))));
+        emit(mix(111, dd));
+        if self.morphology {
+            emit(mix(112, m.case));
+            emit(mix(113, m.morph));
+            emit(mix(114, mix(h.tag, m.case)));
+        }
+    }
+}
+
+/// A stable 64-bit fingerprint of bytes (FNV-1a), e.g. of the training data.
+pub fn fingerprint(bytes: &[u8]) -> u64 {
+    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+    for &byte in bytes {
+        h ^= u64::from(byte);
+        h = h.wrapping_mul(0x0000_0100_0000_01b3);
+    }
+    h
+}

@@ -1,0 +1,311 @@
+//! A trained model: arc weights, label weights, the taggers, and the settings they were trained
+//! with; saved as a directory in a format of our own (`arcwright-model/1`): `model.json`
+//! (settings, tag and label inventories) plus three little-endian f32 weight files.
+
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+
+use crate::decode::{self, Algorithm, RootConstraint, ScoreMatrix};
+use crate::features::{FeatureConfig, SentenceFeatures, TokenView, mix};
+use crate::perceptron::bucket;
+use crate::tagger::Tagger;
+
+pub const FORMAT: &str = "arcwright-model/1";
+
+/// A trained parser with its taggers.
+#[derive(Debug, Clone)]
+pub struct Model {
+    pub features: FeatureConfig,
+    /// Part-of-speech inventory (ids for the in-between features).
+    pub tags: Vec<String>,
+    pub labels: Vec<String>,
+    pub label_bits: u32,
+    pub arc_weights: Vec<f32>,
+    pub label_weights: Vec<f32>,
+    pub tagger: Tagger,
+    /// Predicts the morphology summary (Case, Possessive) when FEATS are not given.
+    pub morph_tagger: Option<Tagger>,
+    /// Decoder matching the training data (non-projective when it has crossing arcs).
+    pub default_decoder: Algorithm,
+    /// Free-form facts about the training run (data fingerprint, epochs, scores).
+    pub training: serde_json::Value,
+}
+
+/// A parse of one sentence.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Parsed {
+    pub tags: Vec<String>,
+    /// `heads[i]` is the head of word i+1 (0 = root).
+    pub heads: Vec<usize>,
+    pub labels: Vec<String>,
+    pub score: f64,
+}
+
+/// Errors loading or saving a model directory.
+#[derive(Debug, thiserror::Error)]
+pub enum ModelError {
+    #[error("{path}: {source}")]
+    Io {
+        path: String,
+        source: std::io::Error,
+    },
+    #[error("{path}: not a model description: {message}")]
+    Format { path: String, message: String },
+}
+
+#[derive(Serialize, Deserialize)]
+struct Description {
+    format: String,
+    hash_bits: u32,
+    morphology: bool,
+    tags: Vec<String>,
+    labels: Vec<String>,
+    label_bits: u32,
+    tagger_tags: Vec<String>,
+    tagger_bits: u32,
+    morph_tags: Option<Vec<String>>,
+    default_decoder: String,
+    training: serde_json::Value,
+}
+
+fn write_f32(path: &Path, values: &[f32]) -> Result<(), ModelError> {
+    let bytes: Vec<u8> = values.iter().flat_map(|v| v.to_le_bytes()).collect();
+    std::fs::write(path, bytes).map_err(|source| ModelError::Io {
+        path: path.display().to_string(),
+        source,
+    })
+}
+
+fn read_f32(path: &Path, expected: usize) -> Result<Vec<f32>, ModelError> {
+    let bytes = std::fs::read(path).map_err(|source| ModelError::Io {
+        path: path.display().to_string(),
+        source,
+    })?;
+    if bytes.len() != expected * 4 {
+        return Err(ModelError::Format {
+            path: path.display().to_string(),
+            message: format!(
+                "{} bytes, expected {} ({} weights)",
+                bytes.len(),
+                expected * 4,
+                expected
+            ),
+        });
+    }
+    Ok(bytes
+        .chunks_exact(4)
+        .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+        .collect())
+}
+
+impl Model {
+    pub fn save(&self, dir: &Path) -> Result<(), ModelError> {
+        let io = |source| ModelError::Io {
+            path: dir.display().to_string(),
+            source,
+        };
+        std::fs::create_dir_all(dir).map_err(io)?;
+        let description = Description {
+            format: FORMAT.to_string(),
+            hash_bits: self.features.hash_bits,
+            morphology: self.features.morphology,
+            tags: self.tags.clone(),
+            labels: self.labels.clone(),
+            label_bits: self.label_bits,
+            tagger_tags: self.tagger.tags.clone(),
+            tagger_bits: self.tagger.bits,
+            morph_tags: self.morph_tagger.as_ref().map(|t| t.tags.clone()),
+            default_decoder: self.default_decoder.name().to_string(),
+            training: self.training.clone(),
+        };
+        let json = serde_json::to_string_pretty(&description).map_err(|e| ModelError::Format {
+            path: dir.display().to_string(),
+            message: e.to_string(),
+        })?;
+        let path = dir.join("model.json");
+        std::fs::write(&path, json).map_err(|source| ModelError::Io {
+            path: path.display().to_string(),
+            source,
+        })?;
+        write_f32(&dir.join("arcs.f32"), &self.arc_weights)?;
+        write_f32(&dir.join("labels.f32"), &self.label_weights)?;
+        write_f32(&dir.join("tagger.f32"), &self.tagger.weights)?;
+        if let Some(morph) = &self.morph_tagger {
+            write_f32(&dir.join("morph.f32"), &morph.weights)?;
+        }
+        Ok(())
+    }
+
+    pub fn load(dir: &Path) -> Result<Model, ModelError> {
+        let path = dir.join("model.json");
+        let text = std::fs::read_to_string(&path).map_err(|source| ModelError::Io {
+            path: path.display().to_string(),
+            source,
+        })?;
+        let format_error = |message: String| ModelError::Format {
+            path: path.display().to_string(),
+            message,
+        };
+        let d: Description =
+            serde_json::from_str(&text).map_err(|e| format_error(e.to_string()))?;
+        if d.format != FORMAT {
+            return Err(format_error(format!(
+                "format {:?}; this build reads {FORMAT:?}",
+                d.format
+            )));
+        }
+        if !(10..=30).contains(&d.hash_bits)
+            || !(10..=30).contains(&d.label_bits)
+            || !(10..=30).contains(&d.tagger_bits)
+        {
+            return Err(format_error("hash bits outside 10..=30".to_string()));
+        }
+        let default_decoder = Algorithm::from_name(&d.default_decoder)
+            .ok_or_else(|| format_error(format!("unknown decoder {:?}", d.default_decoder)))?;
+        let tagger = Tagger {
+            tags: d.tagger_tags,
+            bits: d.tagger_bits,
+            weights: read_f32(&dir.join("tagger.f32"), 1 << d.tagger_bits)?,
+        };
+        let morph_tagger = match d.morph_tags {
+            Some(tags) => Some(Tagger {
+                tags,
+                bits: d.tagger_bits,
+                weights: read_f32(&dir.join("morph.f32"), 1 << d.tagger_bits)?,
+            }),
+            None => None,
+        };
+        Ok(Model {
+            features: FeatureConfig {
+                hash_bits: d.hash_bits,
+                morphology: d.morphology,
+            },
+            arc_weights: read_f32(&dir.join("arcs.f32"), 1 << d.hash_bits)?,
+            label_weights: read_f32(&dir.join("labels.f32"), 1 << d.label_bits)?,
+            tags: d.tags,
+            labels: d.labels,
+            label_bits: d.label_bits,
+            tagger,
+            morph_tagger,
+            default_decoder,
+            training: d.training,
+        })
+    }
+
+    fn tag_id(&self, tag: &str) -> usize {
+        self.tags
+            .binary_search_by(|t| t.as_str().cmp(tag))
+            .unwrap_or(self.tags.len())
+    }
+
+    /// Per-sentence features for given tags and morphology summaries.
+    pub fn sentence_features(
+        &self,
+        forms: &[String],
+        tags: &[String],
+        morph: &[String],
+    ) -> SentenceFeatures {
+        let views: Vec<TokenView<'_>> = forms
+            .iter()
+            .enumerate()
+            .map(|(i, form)| TokenView {
+                form,
+                tag: &tags[i],
+                morph: morph.get(i).map_or("", String::as_str),
+            })
+            .collect();
+        SentenceFeatures::new(
+            &views,
+            &|tag| self.tag_id(tag),
+            self.tags.len() + 1,
+            self.features,
+        )
+    }
+
+    /// Arc scores of a sentence under `weights` (the model's, or weights being trained).
+    pub fn arc_scores(features: &SentenceFeatures, weights: &[f32], bits: u32) -> ScoreMatrix {
+        let side = features.side();
+        let mut flat = vec![0.0f64; side * side];
+        for h in 0..side {
+            for m in 1..side {
+                if h != m {
+                    let mut total = 0.0f32;
+                    features.arc_features(h, m, |hash| total += weights[bucket(hash, bits)]);
+                    flat[h * side + m] = f64::from(total);
+                }
+            }
+        }
+        ScoreMatrix::from_row_major(side - 1, flat).expect("a sentence of at least one word")
+    }
+
+    /// Best label id of the arc under `weights`.
+    pub fn best_label(
+        features: &SentenceFeatures,
+        head: usize,
+        modifier: usize,
+        weights: &[f32],
+        bits: u32,
+        labels: usize,
+    ) -> usize {
+        let mut hashes = Vec::with_capacity(16);
+        features.label_features(head, modifier, |h| hashes.push(h));
+        let mut best = (f32::NEG_INFINITY, 0);
+        for label in 0..labels {
+            let s: f32 = hashes
+                .iter()
+                .map(|&h| weights[bucket(mix(h, label as u64), bits)])
+                .sum();
+            if s > best.0 {
+                best = (s, label);
+            }
+        }
+        best.1
+    }
+
+    /// Tags (unless given) and parses one sentence of at least one word.
+    pub fn parse(
+        &self,
+        forms: &[String],
+        tags: Option<&[String]>,
+        morph: Option<&[String]>,
+        decoder: Option<Algorithm>,
+    ) -> Parsed {
+        let tags: Vec<String> = match tags {
+            Some(t) => t.to_vec(),
+            None => self.tagger.tag(forms),
+        };
+        let morph: Vec<String> = match (morph, &self.morph_tagger, self.features.morphology) {
+            (_, _, false) => Vec::new(),
+            (Some(m), _, true) => m.to_vec(),
+            (None, Some(tagger), true) => tagger.tag(forms),
+            (None, None, true) => Vec::new(),
+        };
+        let features = self.sentence_features(forms, &tags, &morph);
+        let scores = Model::arc_scores(&features, &self.arc_weights, self.features.hash_bits);
+        let decoded = decode::decode(
+            &scores,
+            decoder.unwrap_or(self.default_decoder),
+            RootConstraint::SingleRoot,
+        );
+        let labels = (1..decoded.heads.len())
+            .map(|m| {
+                let id = Model::best_label(
+                    &features,
+                    decoded.heads[m],
+                    m,
+                    &self.label_weights,
+                    self.label_bits,
+                    self.labels.len(),
+                );
+                self.labels[id].clone()
+            })
+            .collect();
+        Parsed {
+            tags,
+            heads: decoded.heads[1..].to_vec(),
+            labels,
+            score: decoded.score,
+        }
+    }
+}

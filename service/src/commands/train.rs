@@ -1,0 +1,92 @@
+//! `arcwright train`: CoNLL-U in, model directory out.
+
+use std::time::Instant;
+
+use arcwright_parser::features::FeatureConfig;
+use arcwright_parser::train::{self, Example, TrainOptions};
+
+use super::{Failure, peak_memory_mib, read_treebank};
+use crate::cli;
+
+fn examples(path: &std::path::Path) -> Result<(Vec<Example>, u64), Failure> {
+    let bytes = std::fs::read(path)
+        .map_err(|e| Failure::runtime(format!("{}: cannot read: {e}", path.display())))?;
+    let fingerprint = arcwright_parser::features::fingerprint(&bytes);
+    let document = read_treebank(path)?;
+    let examples: Vec<Example> = document
+        .sentences
+        .iter()
+        .filter_map(Example::from_sentence)
+        .collect();
+    if examples.is_empty() {
+        return Err(Failure::bad_input(format!(
+            "{}: no annotated sentences (every HEAD is _)",
+            path.display()
+        )));
+    }
+    Ok((examples, fingerprint))
+}
+
+pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
+    let started = Instant::now();
+    let (train_set, fingerprint) = examples(&options.train)?;
+    let dev_set = match &options.dev {
+        Some(path) => examples(path)?.0,
+        None => Vec::new(),
+    };
+    let threads = options
+        .threads
+        .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()))
+        .max(1);
+    let settings = TrainOptions {
+        epochs: options.epochs,
+        seed: options.seed,
+        threads,
+        decoder: options.decoder.map(Into::into),
+        features: FeatureConfig {
+            hash_bits: options.hash_bits,
+            morphology: !options.no_morphology,
+        },
+        ..TrainOptions::default()
+    };
+    eprintln!(
+        "training on {} sentences ({} dev), {} threads, seed {}",
+        train_set.len(),
+        dev_set.len(),
+        threads,
+        options.seed
+    );
+    let mut model = train::train(
+        &train_set,
+        &dev_set,
+        &settings,
+        &mut |stage, report| match report {
+            Some(r) => eprintln!(
+                "epoch {:>2}: train errors {:.2}%{}  [{:.1} s]",
+                r.epoch,
+                100.0 * r.train_errors as f64 / r.train_tokens.max(1) as f64,
+                r.dev_uas
+                    .map_or(String::new(), |u| format!(", dev UAS {u:.2}% (gold tags)")),
+                started.elapsed().as_secs_f64()
+            ),
+            None => eprintln!("{stage}"),
+        },
+    );
+    model.training = serde_json::json!({
+        "train_file": options.train.display().to_string(),
+        "train_fingerprint_fnv64": format!("{fingerprint:016x}"),
+        "train_sentences": train_set.len(),
+        "epochs": options.epochs,
+        "seed": options.seed,
+        "threads": threads,
+        "decoder": model.default_decoder.name(),
+    });
+    model.save(&options.out).map_err(Failure::runtime)?;
+    eprintln!(
+        "model written to {} in {:.1} s; peak memory {}",
+        options.out.display(),
+        started.elapsed().as_secs_f64(),
+        peak_memory_mib().map_or("unknown".to_string(), |m| format!("{m:.0} MiB"))
+    );
+    Ok(())
+}
