@@ -69,6 +69,9 @@ step "conllu package vs our reader, byte-identical rewrite (Turkish treebank)" \
 step "arcwright conllu check on the Turkish treebank" \
     "$BIN" conllu check "$TREEBANK/web.conllu" "$TREEBANK/wiki.conllu"
 
+step "train and evaluate on the Turkish treebank (floors, crossing arcs, reproducibility)" \
+    python3 tests/reference/check_turkish_training.py "$BIN" "$TREEBANK" "$CACHE/work/turkish" 8
+
 echo
 if ((failed > 0)); then
     printf 'failed step: %s\n' "${failed_steps[@]}"

@@ -36,12 +36,28 @@ fn word_features(forms: &[String], i: usize, out: &mut Vec<u64>) {
     out.push(mix(11, hash_str(text::suffix(&get(i - 1), 3))));
     out.push(mix(12, u64::from(i == 0)));
     out.push(13);
+    out.push(mix(14, hash_str(text::suffix(&word, 5))));
+    out.push(mix(15, hash_str(&get(i + 2))));
+    out.push(mix(16, hash_str(&get(i - 2))));
+    out.push(mix(
+        17,
+        mix(hash_str(text::suffix(&word, 3)), hash_str(&get(i - 1))),
+    ));
+    out.push(mix(18, mix(hash_str(&word), hash_str(&get(i + 1)))));
+    out.push(mix(19, u64::from(word.chars().count().min(8) as u8)));
 }
 
-fn history_features(prev: usize, prev2: usize, word_hash: u64, out: &mut Vec<u64>) {
+fn history_features(
+    prev: usize,
+    prev2: usize,
+    word_hash: u64,
+    suffix_hash: u64,
+    out: &mut Vec<u64>,
+) {
     out.push(mix(20, prev as u64));
     out.push(mix(21, mix(prev as u64, prev2 as u64)));
     out.push(mix(22, mix(prev as u64, word_hash)));
+    out.push(mix(23, mix(prev as u64, suffix_hash)));
 }
 
 const START: usize = usize::MAX - 1;
@@ -55,8 +71,8 @@ impl Tagger {
         for i in 0..forms.len() {
             features.clear();
             word_features(forms, i, &mut features);
-            let word_hash = features[0];
-            history_features(prev, prev2, word_hash, &mut features);
+            let (word_hash, suffix_hash) = (features[0], features[3]);
+            history_features(prev, prev2, word_hash, suffix_hash, &mut features);
             let best = self.best_tag(&features, &self.weights);
             out.push(self.tags[best].clone());
             prev2 = prev;
@@ -111,8 +127,8 @@ impl Tagger {
                     trainee.tick();
                     features.clear();
                     word_features(forms, i, &mut features);
-                    let word_hash = features[0];
-                    history_features(prev, prev2, word_hash, &mut features);
+                    let (word_hash, suffix_hash) = (features[0], features[3]);
+                    history_features(prev, prev2, word_hash, suffix_hash, &mut features);
                     let guess = tagger.best_tag(&features, &trainee.weights);
                     let truth = index(&gold[i]);
                     if guess != truth {

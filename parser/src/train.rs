@@ -73,6 +73,10 @@ pub struct TrainOptions {
     pub tagger_epochs: usize,
     /// Stop after this many epochs without a better dev UAS.
     pub patience: usize,
+    /// Train the parser on tags and morphology predicted by taggers trained on the other folds
+    /// (jackknifing), so training sees the tagging errors it will meet at parse time. 0 or 1 =
+    /// train on gold tags.
+    pub jackknife_folds: usize,
 }
 
 impl Default for TrainOptions {
@@ -87,6 +91,7 @@ impl Default for TrainOptions {
             tagger_bits: 20,
             tagger_epochs: 6,
             patience: 3,
+            jackknife_folds: 5,
         }
     }
 }
@@ -161,6 +166,17 @@ pub fn train(
             options.tagger_bits,
         )
     });
+    let jackknifed;
+    let train: &[Example] = if options.jackknife_folds > 1 {
+        progress(
+            &format!("jackknifing tags over {} folds", options.jackknife_folds),
+            None,
+        );
+        jackknifed = jackknife(train, options);
+        &jackknifed
+    } else {
+        train
+    };
     let mut model = Model {
         features: options.features,
         tags,
@@ -285,6 +301,81 @@ pub fn train(
         model.label_weights = labels;
     }
     model
+}
+
+/// The training set with tags and morphology predicted by taggers trained on the other folds
+/// (fold of sentence i = i mod folds). Folds are tagged in parallel; the result does not depend
+/// on the thread count.
+fn jackknife(train: &[Example], options: &TrainOptions) -> Vec<Example> {
+    let folds = options.jackknife_folds;
+    let threads = options.threads.max(1);
+    let tag_fold = |fold: usize| -> Vec<(usize, Vec<String>, Vec<String>)> {
+        let rest: Vec<&Example> = train
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| i % folds != fold)
+            .map(|(_, e)| e)
+            .collect();
+        let pairs: Vec<(Vec<String>, Vec<String>)> = rest
+            .iter()
+            .map(|e| (e.forms.clone(), e.tags.clone()))
+            .collect();
+        let tagger = Tagger::train(
+            &pairs,
+            options.tagger_epochs,
+            options.seed ^ fold as u64,
+            options.tagger_bits,
+        );
+        let morph_tagger = options.features.morphology.then(|| {
+            let pairs: Vec<(Vec<String>, Vec<String>)> = rest
+                .iter()
+                .map(|e| (e.forms.clone(), e.morph.clone()))
+                .collect();
+            Tagger::train(
+                &pairs,
+                options.tagger_epochs,
+                options.seed ^ 0x77 ^ fold as u64,
+                options.tagger_bits,
+            )
+        });
+        train
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| i % folds == fold)
+            .map(|(i, e)| {
+                let morph = morph_tagger
+                    .as_ref()
+                    .map_or_else(|| e.morph.clone(), |t| t.tag(&e.forms));
+                (i, tagger.tag(&e.forms), morph)
+            })
+            .collect()
+    };
+    let mut tagged: Vec<(usize, Vec<String>, Vec<String>)> = Vec::with_capacity(train.len());
+    for batch in (0..folds).collect::<Vec<_>>().chunks(threads) {
+        let results: Vec<_> = std::thread::scope(|scope| {
+            let handles: Vec<_> = batch
+                .iter()
+                .map(|&fold| scope.spawn(move || tag_fold(fold)))
+                .collect();
+            handles
+                .into_iter()
+                .map(|h| h.join().expect("tagging thread"))
+                .collect()
+        });
+        for r in results {
+            tagged.extend(r);
+        }
+    }
+    tagged.sort_by_key(|(i, _, _)| *i);
+    train
+        .iter()
+        .zip(tagged)
+        .map(|(e, (_, tags, morph))| Example {
+            tags,
+            morph,
+            ..e.clone()
+        })
+        .collect()
 }
 
 /// One epoch over one shard, from the given weights.
