@@ -6,6 +6,7 @@
 
 pub mod conllu;
 pub mod decode;
+pub mod demo;
 pub mod eval;
 pub mod features;
 pub mod marginals;
@@ -13,4 +14,5 @@ pub mod model;
 pub mod perceptron;
 pub mod tagger;
 pub mod text;
+pub mod tokenize;
 pub mod train;

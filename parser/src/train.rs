@@ -59,9 +59,20 @@ pub fn morph_summary(feats: &str) -> String {
     }
 }
 
+/// How the arc weights move after a wrong tree.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Update {
+    /// +1 on the gold arcs' features, −1 on the predicted arcs' (Collins 2002).
+    Perceptron,
+    /// Passive-aggressive, PA-I (Crammer et al. 2006): the smallest step that gives the gold tree
+    /// a margin of (number of wrong heads) over the prediction, capped at `aggressiveness`.
+    PassiveAggressive { aggressiveness: f32 },
+}
+
 /// Training settings.
 #[derive(Debug, Clone)]
 pub struct TrainOptions {
+    pub update: Update,
     pub epochs: usize,
     pub seed: u64,
     pub threads: usize,
@@ -82,6 +93,7 @@ pub struct TrainOptions {
 impl Default for TrainOptions {
     fn default() -> Self {
         TrainOptions {
+            update: Update::Perceptron,
             epochs: 10,
             seed: 1,
             threads: 2,
@@ -227,6 +239,7 @@ pub fn train(
                 .iter()
                 .map(|shard| {
                     let (arcs, labels) = (current_arcs.clone(), current_labels.clone());
+                    let update = options.update;
                     scope.spawn(move || {
                         train_shard(
                             model_ref,
@@ -236,6 +249,7 @@ pub fn train(
                             arcs,
                             labels,
                             decoder,
+                            update,
                         )
                     })
                 })
@@ -387,6 +401,7 @@ fn train_shard(
     arcs: Vec<f32>,
     labels: Vec<f32>,
     decoder: Algorithm,
+    update: Update,
 ) -> (Trainee, Trainee, usize, usize) {
     let bits = model.features.hash_bits;
     let label_bits = model.label_bits;
@@ -401,22 +416,51 @@ fn train_shard(
         let features = model.sentence_features(&example.forms, &example.tags, &example.morph);
         let scores = Model::arc_scores(&features, &arc_trainee.weights, bits);
         let predicted = decode::decode(&scores, decoder, RootConstraint::SingleRoot).heads;
-        for m in 1..example.heads.len() {
-            tokens += 1;
-            let (gold, guess) = (example.heads[m], predicted[m]);
-            if gold != guess {
-                errors += 1;
-                hashes.clear();
-                features.arc_features(gold, m, |h| hashes.push(h));
-                for &h in &hashes {
-                    arc_trainee.update(h, 1.0);
+        let wrong: Vec<usize> = (1..example.heads.len())
+            .filter(|&m| example.heads[m] != predicted[m])
+            .collect();
+        tokens += example.heads.len() - 1;
+        errors += wrong.len();
+        let step = match update {
+            Update::Perceptron => 1.0,
+            Update::PassiveAggressive { aggressiveness } if !wrong.is_empty() => {
+                // Δφ = φ(gold) − φ(predicted), per weight bucket; only wrong words differ.
+                let mut delta: std::collections::HashMap<usize, f32> =
+                    std::collections::HashMap::new();
+                let mut margin = 0.0f64;
+                for &m in &wrong {
+                    margin += scores.get(example.heads[m], m) - scores.get(predicted[m], m);
+                    features.arc_features(example.heads[m], m, |h| {
+                        *delta.entry(perceptron::bucket(h, bits)).or_default() += 1.0
+                    });
+                    features.arc_features(predicted[m], m, |h| {
+                        *delta.entry(perceptron::bucket(h, bits)).or_default() -= 1.0
+                    });
                 }
-                hashes.clear();
-                features.arc_features(guess, m, |h| hashes.push(h));
-                for &h in &hashes {
-                    arc_trainee.update(h, -1.0);
+                let norm: f32 = delta.values().map(|d| d * d).sum();
+                let loss = wrong.len() as f64 - margin;
+                if norm > 0.0 {
+                    ((loss as f32) / norm).clamp(0.0, aggressiveness)
+                } else {
+                    0.0
                 }
             }
+            Update::PassiveAggressive { .. } => 0.0,
+        };
+        for &m in &wrong {
+            hashes.clear();
+            features.arc_features(example.heads[m], m, |h| hashes.push(h));
+            for &h in &hashes {
+                arc_trainee.update(h, step);
+            }
+            hashes.clear();
+            features.arc_features(predicted[m], m, |h| hashes.push(h));
+            for &h in &hashes {
+                arc_trainee.update(h, -step);
+            }
+        }
+        for m in 1..example.heads.len() {
+            let gold = example.heads[m];
             // Labeler: trained on the gold arcs.
             let truth = label_ids[index][m - 1];
             let guess_label = Model::best_label(

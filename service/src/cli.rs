@@ -28,6 +28,31 @@ pub enum Command {
     Eval(EvalOptions),
     /// Parse stdin (CoNLL-U or text) to CoNLL-U on stdout.
     Parse(ParseOptions),
+    /// Write demo sentences with gold trees (an invented harbour-crew scenario) as CoNLL-U.
+    DemoData(DemoDataOptions),
+}
+
+#[derive(Debug, Args)]
+pub struct DemoDataOptions {
+    /// Number of sentences.
+    #[arg(long, default_value_t = 1000)]
+    pub sentences: usize,
+    /// Every sentence at least this many words (default: a long-tailed mix).
+    #[arg(long, value_parser = clap::value_parser!(u64).range(1..=4096))]
+    pub words: Option<u64>,
+    /// Longest sentence of the mix.
+    #[arg(long, default_value_t = 120)]
+    pub max_words: usize,
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum UpdateArg {
+    /// Averaged structured perceptron (Collins 2002).
+    Perceptron,
+    /// Passive-aggressive (PA-I) update, loss = wrong heads (Crammer et al. 2006).
+    PassiveAggressive,
 }
 
 #[derive(Debug, Args)]
@@ -58,6 +83,12 @@ pub struct TrainOptions {
     /// Do not use FEATS morphology.
     #[arg(long)]
     pub no_morphology: bool,
+    /// Weight update rule.
+    #[arg(long, value_enum, default_value = "perceptron")]
+    pub update: UpdateArg,
+    /// Train the parser on gold tags instead of jackknifed predicted tags.
+    #[arg(long)]
+    pub gold_train_tags: bool,
 }
 
 #[derive(Debug, Args)]
@@ -77,8 +108,10 @@ pub struct EvalOptions {
 pub enum InputFormat {
     /// CoNLL-U; FORM is read, UPOS/HEAD/DEPREL are filled in.
     Conllu,
-    /// Plain text: one sentence per line, tokens separated by white space.
+    /// Raw text: split into sentences and tokens by Unicode rules (UAX #29).
     Text,
+    /// Pre-tokenized: one sentence per line, tokens separated by white space.
+    Tokens,
 }
 
 #[derive(Debug, Args)]

@@ -17,6 +17,7 @@ fn main() -> ExitCode {
         cli::Command::Train(options) => commands::train::run(&options),
         cli::Command::Eval(options) => commands::eval::run(&options),
         cli::Command::Parse(options) => commands::parse::run(&options),
+        cli::Command::DemoData(options) => commands::demo::run(&options),
     };
     match outcome {
         Ok(()) => ExitCode::SUCCESS,

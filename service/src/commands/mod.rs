@@ -3,6 +3,7 @@
 
 pub mod conllu;
 pub mod decode;
+pub mod demo;
 pub mod eval;
 pub mod parse;
 pub mod train;

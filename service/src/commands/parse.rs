@@ -4,6 +4,7 @@ use std::io::{Read, Write};
 
 use arcwright_parser::conllu::{self, Sentence};
 use arcwright_parser::model::Model;
+use arcwright_parser::tokenize;
 
 use super::Failure;
 use crate::cli::{InputFormat, ParseOptions};
@@ -21,6 +22,14 @@ pub fn run(options: &ParseOptions) -> Result<(), Failure> {
                 .sentences
         }
         InputFormat::Text => {
+            let text = String::from_utf8(input)
+                .map_err(|e| Failure::bad_input(format!("<stdin>: invalid UTF-8: {e}")))?;
+            tokenize::sentences(&text)
+                .into_iter()
+                .map(Sentence::from_forms)
+                .collect()
+        }
+        InputFormat::Tokens => {
             let text = String::from_utf8(input)
                 .map_err(|e| Failure::bad_input(format!("<stdin>: invalid UTF-8: {e}")))?;
             text.lines()

@@ -47,6 +47,17 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
             hash_bits: options.hash_bits,
             morphology: !options.no_morphology,
         },
+        update: match options.update {
+            cli::UpdateArg::Perceptron => train::Update::Perceptron,
+            cli::UpdateArg::PassiveAggressive => train::Update::PassiveAggressive {
+                aggressiveness: 1.0,
+            },
+        },
+        jackknife_folds: if options.gold_train_tags {
+            0
+        } else {
+            TrainOptions::default().jackknife_folds
+        },
         ..TrainOptions::default()
     };
     eprintln!(
@@ -56,22 +67,35 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
         threads,
         options.seed
     );
-    let mut model = train::train(
-        &train_set,
-        &dev_set,
-        &settings,
-        &mut |stage, report| match report {
-            Some(r) => eprintln!(
-                "epoch {:>2}: train errors {:.2}%{}  [{:.1} s]",
-                r.epoch,
-                100.0 * r.train_errors as f64 / r.train_tokens.max(1) as f64,
-                r.dev_uas
-                    .map_or(String::new(), |u| format!(", dev UAS {u:.2}% (gold tags)")),
-                started.elapsed().as_secs_f64()
-            ),
-            None => eprintln!("{stage}"),
-        },
+    let bar = indicatif::ProgressBar::new(options.epochs as u64);
+    bar.set_style(
+        indicatif::ProgressStyle::with_template(
+            "{prefix} [{bar:30}] epoch {pos}/{len} {msg} ({elapsed})",
+        )
+        .map_err(Failure::runtime)?
+        .progress_chars("=> "),
     );
+    bar.set_prefix("training");
+    let mut model = train::train(&train_set, &dev_set, &settings, &mut |stage, report| {
+        let Some(r) = report else {
+            bar.println(stage);
+            return;
+        };
+        bar.println(format!(
+            "epoch {:>2}: train errors {:.2}%{}  [{:.1} s]",
+            r.epoch,
+            100.0 * r.train_errors as f64 / r.train_tokens.max(1) as f64,
+            r.dev_uas
+                .map_or(String::new(), |u| format!(", dev UAS {u:.2}% (gold tags)")),
+            started.elapsed().as_secs_f64()
+        ));
+        bar.set_message(
+            r.dev_uas
+                .map_or(String::new(), |u| format!("dev UAS {u:.2}%")),
+        );
+        bar.inc(1);
+    });
+    bar.finish_and_clear();
     model.training = serde_json::json!({
         "train_file": options.train.display().to_string(),
         "train_fingerprint_fnv64": format!("{fingerprint:016x}"),
@@ -80,6 +104,9 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
         "seed": options.seed,
         "threads": threads,
         "decoder": model.default_decoder.name(),
+        "update": format!("{:?}", settings.update),
+        "jackknife_folds": settings.jackknife_folds,
+        "seconds": started.elapsed().as_secs_f64(),
     });
     model.save(&options.out).map_err(Failure::runtime)?;
     eprintln!(
