@@ -41,9 +41,18 @@ pub struct TokenView<'a> {
     pub morph: &'a str,
 }
 
-/// 64-bit mixing (a multiply-xorshift finaliser, as in SplitMix64).
+/// Combines two hashes: rotate, xor, one multiply by an odd constant (the FxHash pattern).
+/// Feature indices take the *top* bits of the result, which the multiply makes depend on every
+/// input bit. Cheap on purpose: scoring computes about sixty of these per arc for n² arcs, and a
+/// full finaliser here made hashing, not weight lookups, the cost of scoring.
 #[inline(always)]
 pub(crate) fn mix(a: u64, b: u64) -> u64 {
+    (a.rotate_left(26) ^ b).wrapping_mul(0x9E37_79B9_7F4A_7C15)
+}
+
+/// A full 64-bit finaliser (SplitMix64), for pseudo-random numbers.
+#[inline(always)]
+pub(crate) fn scramble(a: u64, b: u64) -> u64 {
     let mut z = a ^ b.wrapping_mul(0x9E37_79B9_7F4A_7C15);
     z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
     z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
@@ -168,26 +177,55 @@ impl SentenceFeatures {
         }
     }
 
-    /// Calls `emit` with the hash of every feature of the arc `head → modifier`.
+    /// Calls `emit` with the hash of every feature of the arc `head → modifier`: the head's
+    /// unary features, the modifier's, the pair features and the in-between features.
     #[inline]
     pub fn arc_features(&self, head: usize, modifier: usize, mut emit: impl FnMut(u64)) {
+        let dd = Self::dd_code(head, modifier);
+        self.unary_features(head, true, dd, &mut emit);
+        self.unary_features(modifier, false, dd, &mut emit);
+        self.pair_features(head, modifier, &mut emit);
+    }
+
+    /// Direction-distance codes are `1 + 8·direction + bin` with bins 1..=7, so they are < 17.
+    pub const DD_CODES: usize = 17;
+
+    /// The direction-distance code of an arc.
+    #[inline(always)]
+    pub fn dd_code(head: usize, modifier: usize) -> u64 {
+        1 + u64::from(head < modifier) * 8 + distance_bin(head.abs_diff(modifier))
+    }
+
+    /// Features of one end of an arc: templates 1–3 for the head, 4–6 for the modifier, plain and
+    /// conjoined with the direction-distance code `dd`. They depend on one token and `dd` only,
+    /// so scoring can table them per token (O(n) lookups) instead of per arc.
+    #[inline]
+    pub fn unary_features(&self, token: usize, as_head: bool, dd: u64, mut emit: impl FnMut(u64)) {
+        let p = &self.parts[token];
+        let templates: [(u64, u64); 3] = if as_head {
+            [(1, p.word_tag), (2, p.word), (3, p.tag)]
+        } else {
+            [(4, p.word_tag), (5, p.word), (6, p.tag)]
+        };
+        for (template, value) in templates {
+            let base = mix(template, value);
+            emit(base);
+            emit(mix(base, dd));
+        }
+    }
+
+    /// Features that depend on both ends of the arc (templates 7 and up, and in-between tags).
+    #[inline]
+    pub fn pair_features(&self, head: usize, modifier: usize, mut emit: impl FnMut(u64)) {
         let h = &self.parts[head];
         let m = &self.parts[modifier];
         let (hi, mi) = (head as isize, modifier as isize);
-        let direction = u64::from(head < modifier);
-        let distance = head.abs_diff(modifier);
-        let dd = 1 + direction * 8 + distance_bin(distance);
+        let dd = Self::dd_code(head, modifier);
         let mut both = |template: u64, value: u64| {
             let base = mix(template, value);
             emit(base);
             emit(mix(base, dd));
         };
-        both(1, h.word_tag);
-        both(2, h.word);
-        both(3, h.tag);
-        both(4, m.word_tag);
-        both(5, m.word);
-        both(6, m.tag);
         both(7, mix(h.word_tag, m.word_tag));
         both(8, mix(h.tag, m.word_tag));
         both(9, mix(h.word, m.word_tag));
@@ -196,12 +234,8 @@ impl SentenceFeatures {
         both(12, mix(h.word, m.word));
         both(13, mix(h.tag, m.tag));
         // Surrounding tags.
-        let (h_prev, h_next, m_prev, m_next) = (
-            self.tag_at(hi - 1),
-            self.tag_at(hi + 1),
-            self.tag_at(mi - 1),
-            self.tag_at(mi + 1),
-        );
+        let (h_prev, h_next) = (self.tag_at(hi - 1), self.tag_at(hi + 1));
+        let (m_prev, m_next) = (self.tag_at(mi - 1), self.tag_at(mi + 1));
         both(14, mix(mix(h.tag, h_next), mix(m_prev, m.tag)));
         both(15, mix(mix(h_prev, h.tag), mix(m_prev, m.tag)));
         both(16, mix(mix(h.tag, h_next), mix(m.tag, m_next)));

@@ -224,14 +224,40 @@ impl Model {
     }
 
     /// Arc scores of a sentence under `weights` (the model's, or weights being trained).
+    ///
+    /// The head-side and modifier-side features depend on one token and the arc's
+    /// direction-distance code only, so they are summed once per (token, code) into small tables;
+    /// only the pair features are looked up per arc.
     pub fn arc_scores(features: &SentenceFeatures, weights: &[f32], bits: u32) -> ScoreMatrix {
         let side = features.side();
+        let codes = SentenceFeatures::DD_CODES;
+        let mut head_table = vec![0.0f32; side * codes];
+        let mut modifier_table = vec![0.0f32; side * codes];
+        for token in 0..side {
+            for direction in 0..2u64 {
+                for bin in 1..=7u64 {
+                    let dd = 1 + direction * 8 + bin;
+                    let slot = token * codes + dd as usize;
+                    let mut total = 0.0f32;
+                    features.unary_features(token, true, dd, |hash| {
+                        total += weights[bucket(hash, bits)]
+                    });
+                    head_table[slot] = total;
+                    let mut total = 0.0f32;
+                    features.unary_features(token, false, dd, |hash| {
+                        total += weights[bucket(hash, bits)]
+                    });
+                    modifier_table[slot] = total;
+                }
+            }
+        }
         let mut flat = vec![0.0f64; side * side];
         for h in 0..side {
             for m in 1..side {
                 if h != m {
-                    let mut total = 0.0f32;
-                    features.arc_features(h, m, |hash| total += weights[bucket(hash, bits)]);
+                    let dd = SentenceFeatures::dd_code(h, m) as usize;
+                    let mut total = head_table[h * codes + dd] + modifier_table[m * codes + dd];
+                    features.pair_features(h, m, |hash| total += weights[bucket(hash, bits)]);
                     flat[h * side + m] = f64::from(total);
                 }
             }

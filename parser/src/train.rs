@@ -123,7 +123,7 @@ pub fn shuffle<T>(items: &mut [T], seed: u64) {
     let mut state = seed;
     for i in (1..items.len()).rev() {
         state = state.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let j = (mix(state, 0) % (i as u64 + 1)) as usize;
+        let j = (crate::features::scramble(state, 0) % (i as u64 + 1)) as usize;
         items.swap(i, j);
     }
 }
