@@ -8,7 +8,9 @@ use super::{Failure, read_treebank};
 use crate::cli::EvalOptions;
 
 pub fn run(options: &EvalOptions) -> Result<(), Failure> {
+    let load_started = std::time::Instant::now();
     let model = Model::load(&options.model).map_err(Failure::bad_input)?;
+    let load_seconds = load_started.elapsed().as_secs_f64();
     let document = read_treebank(&options.gold)?;
     let decoder = options.decoder.map(Into::into);
     let mut evaluator = Evaluator::excluding_label("ig");
@@ -44,6 +46,7 @@ pub fn run(options: &EvalOptions) -> Result<(), Failure> {
         "predicted"
     });
     report["seconds"] = serde_json::json!(elapsed);
+    report["model_load_seconds"] = serde_json::json!(load_seconds);
     report["sentences_per_second"] =
         serde_json::json!(report["sentences"].as_f64().unwrap_or(0.0) / elapsed.max(1e-9));
     eprint!("{}", evaluator.table());
