@@ -106,7 +106,6 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
         "decoder": model.default_decoder.name(),
         "update": format!("{:?}", settings.update),
         "jackknife_folds": settings.jackknife_folds,
-        "seconds": started.elapsed().as_secs_f64(),
     });
     model.save(&options.out).map_err(Failure::runtime)?;
     eprintln!(
