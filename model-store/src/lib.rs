@@ -1,1 +1,32 @@
-//! Model store (issue 4): not built yet. This crate exists so the workspace has the layout of the contract.
+//! The model store: versioned, verified model artifacts on a local directory or an
+//! S3-compatible object store, with aliases (`live`, …) and a change feed.
+//!
+//! **Invariants.** This crate knows artifacts and bytes, not parsing: a model is a directory of
+//! files; the manifest records each file's size and SHA-256, plus metadata copied from the
+//! model's own `model.json` when present. A published version is immutable (its objects are
+//! written once, with create-only puts where the backend supports them). A version is visible
+//! only once its manifest exists, and the manifest is written last, so a partial publish is never
+//! listed or loaded. An alias only ever points at a version whose every file was verified.
+//!
+//! Layout under the store's root:
+//!
+//! ```text
+//! models/<name>/versions/<version>/<payload files…>
+//! models/<name>/versions/<version>/manifest.json      (written last)
+//! models/<name>/aliases/<alias>.json                  ({"version", "history", "updated"})
+//! ```
+//!
+//! Names (models and aliases): 1–64 characters from `a–z 0–9 . _ -`, starting with a letter or
+//! digit, no `..`. Version ids are made by the store: `YYYYMMDDTHHMMSS.mmmZ-xxxxxxxx` (UTC time
+//! of publishing and 8 hex digits), so they sort by time and two concurrent publishes differ.
+
+mod layout;
+mod manifest;
+mod names;
+mod store;
+mod watch;
+
+pub use manifest::{FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
+pub use names::{validate_name, validate_version};
+pub use store::{AliasRecord, Store, StoreError, VersionSummary};
+pub use watch::AliasWatcher;

@@ -1,0 +1,352 @@
+//! The store on the local backend: round trip, faults, aliases, concurrency, names, change feed.
+//! (The S3-compatible backend runs the same operations in `tests/reference/check_store_s3.py`
+//! against a real S3 server on 127.0.0.1.)
+
+use std::path::Path;
+use std::time::Duration;
+
+use arcwright_store::{AliasWatcher, Store, StoreError};
+
+/// A small artifact directory: a model.json and two payload files.
+fn artifact(dir: &Path, seed: u8) {
+    std::fs::create_dir_all(dir).expect("mkdir");
+    std::fs::write(
+        dir.join("model.json"),
+        format!(r#"{{"format": "arcwright-model/1", "labels": ["a", "b"], "seed": {seed}}}"#),
+    )
+    .expect("write");
+    std::fs::write(dir.join("arcs.f32"), vec![seed; 4096]).expect("write");
+    std::fs::write(dir.join("labels.f32"), (0..=255u8).collect::<Vec<_>>()).expect("write");
+}
+
+fn store_dir(root: &Path) -> String {
+    root.join("store").display().to_string()
+}
+
+fn object(root: &Path, name: &str, version: &str, file: &str) -> std::path::PathBuf {
+    root.join("store/models")
+        .join(name)
+        .join("versions")
+        .join(version)
+        .join(file)
+}
+
+#[tokio::test]
+async fn publish_list_fetch_round_trip_gives_identical_bytes() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    artifact(&tmp.path().join("model"), 7);
+    let store = Store::open(&store_dir(tmp.path())).expect("open");
+    let manifest = store
+        .publish(
+            "turkish",
+            &tmp.path().join("model"),
+            Some(serde_json::json!({"uas": 84.2})),
+        )
+        .await
+        .expect("publish");
+    assert_eq!(manifest.files.len(), 3);
+    assert_eq!(manifest.labels, vec!["a", "b"]);
+    assert_eq!(
+        manifest.artifact_format.as_deref(),
+        Some("arcwright-model/1")
+    );
+    assert_eq!(store.names().await.expect("names"), vec!["turkish"]);
+    assert_eq!(
+        store.versions("turkish").await.expect("versions"),
+        vec![manifest.version.clone()]
+    );
+    let (dir, fetched) = store
+        .fetch("turkish", &manifest.version, &tmp.path().join("cache"))
+        .await
+        .expect("fetch");
+    assert_eq!(fetched, manifest);
+    for file in ["model.json", "arcs.f32", "labels.f32"] {
+        assert_eq!(
+            std::fs::read(dir.join(file)).expect("read"),
+            std::fs::read(tmp.path().join("model").join(file)).expect("read")
+        );
+    }
+}
+
+#[tokio::test]
+async fn damaged_versions_are_refused_with_clear_errors() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    artifact(&tmp.path().join("model"), 1);
+    let store = Store::open(&store_dir(tmp.path())).expect("open");
+    let model_dir = tmp.path().join("model");
+    let publish = || store.publish("m", &model_dir, None);
+    let good = publish().await.expect("publish").version;
+    store.set_alias("m", "live", &good).await.expect("promote");
+
+    // Flipped byte.
+    let flipped = publish().await.expect("publish").version;
+    let path = object(tmp.path(), "m", &flipped, "arcs.f32");
+    let mut bytes = std::fs::read(&path).expect("read");
+    bytes[100] ^= 0x01;
+    std::fs::write(&path, bytes).expect("write");
+    let error = store
+        .verify("m", &flipped)
+        .await
+        .expect_err("flipped byte")
+        .to_string();
+    assert!(
+        error.contains(&format!(
+            "model m version {flipped}: file arcs.f32 has SHA-256"
+        )),
+        "{error}"
+    );
+    let cache = tmp.path().join("cache");
+    assert!(store.fetch("m", &flipped, &cache).await.is_err());
+    assert!(
+        !cache.join("m").join(&flipped).exists(),
+        "nothing loaded from a damaged version"
+    );
+    let error = store
+        .set_alias("m", "live", &flipped)
+        .await
+        .expect_err("no alias to damaged")
+        .to_string();
+    assert!(error.contains("SHA-256"), "{error}");
+    assert_eq!(
+        store
+            .alias("m", "live")
+            .await
+            .expect("alias")
+            .expect("exists")
+            .version,
+        good,
+        "live unchanged"
+    );
+
+    // Truncated payload.
+    let truncated = publish().await.expect("publish").version;
+    let path = object(tmp.path(), "m", &truncated, "labels.f32");
+    std::fs::write(&path, vec![0u8; 10]).expect("write");
+    let error = store
+        .verify("m", &truncated)
+        .await
+        .expect_err("truncated")
+        .to_string();
+    assert!(
+        error.contains("file labels.f32 has 10 bytes; the manifest says 256"),
+        "{error}"
+    );
+
+    // Missing manifest: the version does not exist.
+    let headless = publish().await.expect("publish").version;
+    std::fs::remove_file(object(tmp.path(), "m", &headless, "manifest.json")).expect("rm");
+    assert!(
+        !store
+            .versions("m")
+            .await
+            .expect("versions")
+            .contains(&headless)
+    );
+    let error = store
+        .fetch("m", &headless, &cache)
+        .await
+        .expect_err("no manifest")
+        .to_string();
+    assert!(
+        error.contains(&format!(
+            "model m version {headless} (no manifest) not found"
+        )),
+        "{error}"
+    );
+
+    // Unknown schema major version.
+    let future = publish().await.expect("publish").version;
+    let path = object(tmp.path(), "m", &future, "manifest.json");
+    let text = std::fs::read_to_string(&path)
+        .expect("read")
+        .replace("\"schema\": \"1.0\"", "\"schema\": \"2.0\"");
+    std::fs::write(&path, text).expect("write");
+    let error = store
+        .fetch("m", &future, &cache)
+        .await
+        .expect_err("schema 2")
+        .to_string();
+    assert!(
+        error.contains("manifest schema 2.0; this build reads schema 1.x"),
+        "{error}"
+    );
+    assert!(store.set_alias("m", "live", &future).await.is_err());
+    assert_eq!(
+        store
+            .alias("m", "live")
+            .await
+            .expect("alias")
+            .expect("exists")
+            .version,
+        good
+    );
+}
+
+#[tokio::test]
+async fn aliases_promote_roll_back_and_protect_from_pruning() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    let store = Store::open(&store_dir(tmp.path())).expect("open");
+    let mut versions = Vec::new();
+    for seed in 0..5 {
+        artifact(&tmp.path().join(format!("model{seed}")), seed);
+        versions.push(
+            store
+                .publish("m", &tmp.path().join(format!("model{seed}")), None)
+                .await
+                .expect("publish")
+                .version,
+        );
+    }
+    let sorted = {
+        let mut v = versions.clone();
+        v.sort();
+        v
+    };
+    assert_eq!(sorted, versions, "version ids sort by publishing time");
+    store
+        .set_alias("m", "live", &versions[0])
+        .await
+        .expect("promote");
+    store
+        .set_alias("m", "live", &versions[1])
+        .await
+        .expect("promote");
+    let record = store
+        .set_alias("m", "live", &versions[2])
+        .await
+        .expect("promote");
+    assert_eq!(
+        record.history,
+        vec![versions[1].clone(), versions[0].clone()]
+    );
+    let record = store.rollback("m", "live").await.expect("rollback");
+    assert_eq!(record.version, versions[1]);
+    assert_eq!(
+        store.rollback("m", "live").await.expect("rollback").version,
+        versions[0]
+    );
+    let error = store
+        .rollback("m", "live")
+        .await
+        .expect_err("nothing earlier")
+        .to_string();
+    assert!(error.contains("has no earlier target"), "{error}");
+    store
+        .set_alias("m", "canary", &versions[4])
+        .await
+        .expect("second alias");
+    // Keep the newest 2, never the one `live` points to (versions[0]).
+    let deleted = store.prune("m", 2).await.expect("prune");
+    assert_eq!(deleted, vec![versions[1].clone(), versions[2].clone()]);
+    assert_eq!(
+        store.versions("m").await.expect("versions"),
+        vec![
+            versions[0].clone(),
+            versions[3].clone(),
+            versions[4].clone()
+        ]
+    );
+    let listed = store.list("m").await.expect("list");
+    assert_eq!(listed[0].aliases, vec!["live"]);
+    assert_eq!(listed[2].aliases, vec!["canary"]);
+}
+
+#[tokio::test]
+async fn concurrent_publishes_of_one_name_get_distinct_versions() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    artifact(&tmp.path().join("model"), 3);
+    let store = Store::open(&store_dir(tmp.path())).expect("open");
+    let dir = tmp.path().join("model");
+    let tasks: Vec<_> = (0..8)
+        .map(|_| {
+            let (store, dir) = (store.clone(), dir.clone());
+            tokio::spawn(async move { store.publish("m", &dir, None).await.map(|m| m.version) })
+        })
+        .collect();
+    let mut versions = Vec::new();
+    for task in tasks {
+        versions.push(task.await.expect("join").expect("publish"));
+    }
+    versions.sort();
+    versions.dedup();
+    assert_eq!(versions.len(), 8, "{versions:?}");
+    for v in &versions {
+        store.verify("m", v).await.expect("each version complete");
+    }
+}
+
+#[tokio::test]
+async fn bad_names_are_rejected_before_touching_the_store() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    artifact(&tmp.path().join("model"), 1);
+    let store = Store::open(&store_dir(tmp.path())).expect("open");
+    let long = "a".repeat(300);
+    let cases: [(&str, &str); 4] = [
+        ("../x", "invalid model name \"../x\": it contains '/'"),
+        ("", "invalid model name \"\": it is empty"),
+        (&long, "it has 300 characters; the limit is 64"),
+        ("tab\tname", "it contains '\\t'"),
+    ];
+    for (name, expected) in cases {
+        let error = store
+            .publish(name, &tmp.path().join("model"), None)
+            .await
+            .expect_err("bad name")
+            .to_string();
+        assert!(error.contains(expected), "{name:?}: {error}");
+    }
+    assert!(matches!(
+        store.manifest("m", "../../etc/passwd").await,
+        Err(StoreError::InvalidName { .. })
+    ));
+    assert!(store.names().await.expect("names").is_empty());
+    assert!(Store::open("ftp://host/x").is_err());
+}
+
+#[tokio::test]
+async fn the_change_feed_reports_each_new_target_once() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    artifact(&tmp.path().join("model"), 1);
+    let store = Store::open(&store_dir(tmp.path())).expect("open");
+    let first = store
+        .publish("m", &tmp.path().join("model"), None)
+        .await
+        .expect("publish")
+        .version;
+    let second = store
+        .publish("m", &tmp.path().join("model"), None)
+        .await
+        .expect("publish")
+        .version;
+    store.set_alias("m", "live", &first).await.expect("promote");
+    let mut watcher = AliasWatcher::new(
+        store.clone(),
+        "m",
+        "live",
+        Duration::from_millis(20),
+        Some(first.clone()),
+    );
+    assert_eq!(
+        watcher.poll_now().await.expect("poll"),
+        None,
+        "no change yet"
+    );
+    let promoter = {
+        let (store, second) = (store.clone(), second.clone());
+        tokio::spawn(async move {
+            tokio::time::sleep(Duration::from_millis(100)).await;
+            store.set_alias("m", "live", &second).await
+        })
+    };
+    let change = tokio::time::timeout(Duration::from_secs(5), watcher.next_change())
+        .await
+        .expect("in time")
+        .expect("change");
+    assert_eq!(change.version, second);
+    promoter.await.expect("join").expect("promote");
+    assert_eq!(
+        watcher.poll_now().await.expect("poll"),
+        None,
+        "reported once"
+    );
+}
