@@ -31,7 +31,7 @@ step() {
 install_python_packages() {
     # Pinned versions of the outside references.
     python3 -m pip install --quiet --disable-pip-version-check --root-user-action=ignore \
-        "networkx==3.6.1" "conllu==6.0.0"
+        "networkx==3.6.1" "conllu==6.0.0" "moto[server]==5.2.1"
 }
 
 fetch_turkish_treebank() {
@@ -71,6 +71,10 @@ step "arcwright conllu check on the Turkish treebank" \
 
 step "train and evaluate on the Turkish treebank (floors, crossing arcs, reproducibility)" \
     python3 tests/reference/check_turkish_training.py "$BIN" "$TREEBANK" "$CACHE/work/turkish" 8
+
+step "model store on local disk and on an S3-compatible server (moto on 127.0.0.1)" \
+    python3 tests/reference/check_store_s3.py "$BIN" "$CACHE/work/turkish/model-non-projective" \
+        "$CACHE/work/turkish/split/test.conllu" "$CACHE/work/store"
 
 echo
 if ((failed > 0)); then

@@ -30,6 +30,92 @@ pub enum Command {
     Parse(ParseOptions),
     /// Write demo sentences with gold trees (an invented harbour-crew scenario) as CoNLL-U.
     DemoData(DemoDataOptions),
+    /// Publish, list, promote, roll back, verify, fetch and prune model versions.
+    Store(StoreOptions),
+}
+
+#[derive(Debug, Args)]
+pub struct StoreOptions {
+    /// Store URL: a path, file:///abs/path, or s3://bucket/prefix (AWS_* variables for S3).
+    #[arg(long, global = true, default_value = "./model-store")]
+    pub store: String,
+    #[command(subcommand)]
+    pub action: StoreAction,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum StoreAction {
+    /// Publish a model directory as a new version; prints the version id.
+    Publish {
+        #[arg(long)]
+        name: String,
+        /// The model directory (as written by `arcwright train`).
+        dir: PathBuf,
+        /// Evaluation scores to record in the manifest (a JSON file, e.g. `arcwright eval` output).
+        #[arg(long)]
+        scores: Option<PathBuf>,
+    },
+    /// List models, or one model's versions with sizes, scores and aliases.
+    List {
+        #[arg(long)]
+        name: Option<String>,
+        /// One JSON document instead of a table.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Point an alias (default `live`) at a version, after verifying it.
+    Promote {
+        #[arg(long)]
+        name: String,
+        #[arg(long)]
+        version: String,
+        #[arg(long, default_value = "live")]
+        alias: String,
+    },
+    /// Move an alias (default `live`) back to its previous target.
+    Rollback {
+        #[arg(long)]
+        name: String,
+        #[arg(long, default_value = "live")]
+        alias: String,
+    },
+    /// Re-check the checksums of one version, or of every version of a model.
+    Verify {
+        #[arg(long)]
+        name: String,
+        #[arg(long)]
+        version: Option<String>,
+    },
+    /// Download and verify a version (default: the `live` one) into a local directory.
+    Fetch {
+        #[arg(long)]
+        name: String,
+        #[arg(long)]
+        version: Option<String>,
+        /// Cache directory; the model lands in <cache>/<name>/<version>/.
+        #[arg(long, default_value = ".cache/models")]
+        cache: PathBuf,
+    },
+    /// Follow an alias and print each new target as it appears (the service's change feed).
+    Watch {
+        #[arg(long)]
+        name: String,
+        #[arg(long, default_value = "live")]
+        alias: String,
+        /// Seconds between polls.
+        #[arg(long, default_value_t = 5.0)]
+        interval: f64,
+        /// Exit after this many changes.
+        #[arg(long)]
+        count: Option<usize>,
+    },
+    /// Delete all but the newest N versions, never one an alias points at.
+    Prune {
+        #[arg(long)]
+        name: String,
+        #[arg(long)]
+        keep: usize,
+    },
 }
 
 #[derive(Debug, Args)]

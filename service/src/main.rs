@@ -18,6 +18,7 @@ fn main() -> ExitCode {
         cli::Command::Eval(options) => commands::eval::run(&options),
         cli::Command::Parse(options) => commands::parse::run(&options),
         cli::Command::DemoData(options) => commands::demo::run(&options),
+        cli::Command::Store(options) => commands::store::run(&options),
     };
     match outcome {
         Ok(()) => ExitCode::SUCCESS,

@@ -6,6 +6,7 @@ pub mod decode;
 pub mod demo;
 pub mod eval;
 pub mod parse;
+pub mod store;
 pub mod train;
 
 /// A command's failure: what to tell the user and which exit code to use.

@@ -1,0 +1,249 @@
+//! `arcwright store …`: the model store from the command line.
+
+use arcwright_store::{Store, StoreError};
+
+use super::Failure;
+use crate::cli::{StoreAction, StoreOptions};
+
+fn failure(error: StoreError) -> Failure {
+    match error {
+        StoreError::Backend { .. } | StoreError::Io { .. } => Failure::runtime(error),
+        _ => Failure::bad_input(error),
+    }
+}
+
+pub fn run(options: &StoreOptions) -> Result<(), Failure> {
+    let runtime = tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .build()
+        .map_err(Failure::runtime)?;
+    runtime.block_on(async {
+        let store = Store::open(&options.store).map_err(failure)?;
+        run_action(&store, &options.action).await
+    })
+}
+
+async fn run_action(store: &Store, action: &StoreAction) -> Result<(), Failure> {
+    match action {
+        StoreAction::Publish { name, dir, scores } => {
+            let scores = match scores {
+                Some(path) => {
+                    let text = std::fs::read_to_string(path)
+                        .map_err(|e| Failure::runtime(format!("{}: {e}", path.display())))?;
+                    Some(serde_json::from_str(&text).map_err(|e| {
+                        Failure::bad_input(format!("{}: not JSON: {e}", path.display()))
+                    })?)
+                }
+                None => None,
+            };
+            let started = std::time::Instant::now();
+            let manifest = store.publish(name, dir, scores).await.map_err(failure)?;
+            eprintln!(
+                "published {name} {} ({} files, {} bytes) to {} in {:.2} s",
+                manifest.version,
+                manifest.files.len(),
+                manifest.size(),
+                store.url(),
+                started.elapsed().as_secs_f64()
+            );
+            println!("{}", manifest.version);
+        }
+        StoreAction::List { name: None, json } => {
+            let names = store.names().await.map_err(failure)?;
+            let mut models = Vec::new();
+            for name in &names {
+                let aliases = store.aliases(name).await.map_err(failure)?;
+                let versions = store.versions(name).await.map_err(failure)?;
+                models.push(serde_json::json!({
+                    "name": name,
+                    "versions": versions.len(),
+                    "aliases": aliases.iter().map(|(a, r)| (a.clone(), serde_json::json!(r.version))).collect::<serde_json::Map<_, _>>(),
+                }));
+                if !json {
+                    let alias_text: Vec<String> = aliases
+                        .iter()
+                        .map(|(a, r)| format!("{a} → {}", r.version))
+                        .collect();
+                    println!(
+                        "{name}\t{} versions\t{}",
+                        versions.len(),
+                        alias_text.join(", ")
+                    );
+                }
+            }
+            if *json {
+                println!("{}", serde_json::json!({ "models": models }));
+            }
+        }
+        StoreAction::List {
+            name: Some(name),
+            json,
+        } => {
+            let listed = store.list(name).await.map_err(failure)?;
+            if *json {
+                let versions: Vec<_> = listed
+                    .iter()
+                    .map(|v| serde_json::json!({"manifest": v.manifest, "size": v.manifest.size(), "aliases": v.aliases}))
+                    .collect();
+                println!(
+                    "{}",
+                    serde_json::json!({ "name": name, "versions": versions })
+                );
+            } else {
+                println!(
+                    "{:<30} {:>12}  {:<25} {:<16} aliases",
+                    "version", "bytes", "created", "scores (UAS/LAS)"
+                );
+                for v in &listed {
+                    let m = &v.manifest;
+                    let scores = m
+                        .scores
+                        .as_ref()
+                        .and_then(|s| {
+                            Some(format!(
+                                "{:.2}/{:.2}",
+                                s.get("uas")?.as_f64()?,
+                                s.get("las")?.as_f64()?
+                            ))
+                        })
+                        .unwrap_or_else(|| "-".to_string());
+                    println!(
+                        "{:<30} {:>12}  {:<25} {:<16} {}",
+                        m.version,
+                        m.size(),
+                        m.created,
+                        scores,
+                        v.aliases.join(", ")
+                    );
+                }
+            }
+        }
+        StoreAction::Promote {
+            name,
+            version,
+            alias,
+        } => {
+            let record = store
+                .set_alias(name, alias, version)
+                .await
+                .map_err(failure)?;
+            println!(
+                "{name} {alias} → {}{}",
+                record.version,
+                record
+                    .history
+                    .first()
+                    .map_or(String::new(), |p| format!(" (was {p})"))
+            );
+        }
+        StoreAction::Rollback { name, alias } => {
+            let record = store.rollback(name, alias).await.map_err(failure)?;
+            println!("{name} {alias} → {}", record.version);
+        }
+        StoreAction::Verify { name, version } => {
+            let versions = match version {
+                Some(v) => vec![v.clone()],
+                None => store.versions(name).await.map_err(failure)?,
+            };
+            let mut bad = 0;
+            for v in &versions {
+                match store.verify(name, v).await {
+                    Ok(m) => println!(
+                        "{name} {v}: ok ({} files, {} bytes)",
+                        m.files.len(),
+                        m.size()
+                    ),
+                    Err(e) => {
+                        bad += 1;
+                        eprintln!("{e}");
+                    }
+                }
+            }
+            if bad > 0 {
+                return Err(Failure::bad_input(format!(
+                    "{bad} of {} versions failed verification",
+                    versions.len()
+                )));
+            }
+        }
+        StoreAction::Fetch {
+            name,
+            version,
+            cache,
+        } => {
+            let version = match version {
+                Some(v) => v.clone(),
+                None => {
+                    store
+                        .alias(name, "live")
+                        .await
+                        .map_err(failure)?
+                        .ok_or_else(|| {
+                            Failure::bad_input(format!(
+                                "model {name} has no live alias; give --version"
+                            ))
+                        })?
+                        .version
+                }
+            };
+            let started = std::time::Instant::now();
+            let (dir, _) = store.fetch(name, &version, cache).await.map_err(failure)?;
+            eprintln!(
+                "fetched and verified in {:.2} s",
+                started.elapsed().as_secs_f64()
+            );
+            println!("{}", dir.display());
+        }
+        StoreAction::Watch {
+            name,
+            alias,
+            interval,
+            count,
+        } => {
+            if !(interval.is_finite() && *interval > 0.0) {
+                return Err(Failure::bad_input(format!(
+                    "--interval {interval}: must be a positive number of seconds"
+                )));
+            }
+            let current = store
+                .alias(name, alias)
+                .await
+                .map_err(failure)?
+                .map(|r| r.version);
+            println!(
+                "{} {name} {alias} {}",
+                unix_millis(),
+                current.as_deref().unwrap_or("-")
+            );
+            let interval = std::time::Duration::from_secs_f64(*interval);
+            let mut watcher =
+                arcwright_store::AliasWatcher::new(store.clone(), name, alias, interval, current);
+            let mut seen = 0;
+            while count.is_none_or(|c| seen < c) {
+                match watcher.next_change().await {
+                    Ok(record) => {
+                        seen += 1;
+                        println!("{} {name} {alias} {}", unix_millis(), record.version);
+                    }
+                    Err(e) => eprintln!(
+                        "{} poll failed (will retry with backoff): {e}",
+                        unix_millis()
+                    ),
+                }
+            }
+        }
+        StoreAction::Prune { name, keep } => {
+            for v in store.prune(name, *keep).await.map_err(failure)? {
+                println!("deleted {name} {v}");
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Milliseconds since the Unix epoch, for watch output.
+fn unix_millis() -> u128 {
+    std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_millis())
+}
