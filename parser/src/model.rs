@@ -40,6 +40,8 @@ pub struct Parsed {
     pub heads: Vec<usize>,
     pub labels: Vec<String>,
     pub score: f64,
+    /// P(head → word) of each chosen arc under the model's tree distribution, when asked for.
+    pub confidences: Option<Vec<f64>>,
 }
 
 /// Errors loading or saving a model directory.
@@ -297,6 +299,19 @@ impl Model {
         morph: Option<&[String]>,
         decoder: Option<Algorithm>,
     ) -> Parsed {
+        self.parse_with(forms, tags, morph, decoder, false)
+    }
+
+    /// Like [`Model::parse`]; with `confidence`, also the marginal probability of each chosen arc
+    /// (inside-outside for the projective decoder, Matrix-Tree for the non-projective one).
+    pub fn parse_with(
+        &self,
+        forms: &[String],
+        tags: Option<&[String]>,
+        morph: Option<&[String]>,
+        decoder: Option<Algorithm>,
+        confidence: bool,
+    ) -> Parsed {
         let tags: Vec<String> = match tags {
             Some(t) => t.to_vec(),
             None => self.tagger.tag(forms),
@@ -309,11 +324,15 @@ impl Model {
         };
         let features = self.sentence_features(forms, &tags, &morph);
         let scores = Model::arc_scores(&features, &self.arc_weights, self.features.hash_bits);
-        let decoded = decode::decode(
-            &scores,
-            decoder.unwrap_or(self.default_decoder),
-            RootConstraint::SingleRoot,
-        );
+        let algorithm = decoder.unwrap_or(self.default_decoder);
+        let decoded = decode::decode(&scores, algorithm, RootConstraint::SingleRoot);
+        let confidences = confidence.then(|| {
+            let marginals =
+                crate::marginals::marginals(&scores, algorithm, RootConstraint::SingleRoot);
+            (1..decoded.heads.len())
+                .map(|m| marginals.probability(decoded.heads[m], m))
+                .collect()
+        });
         let labels = (1..decoded.heads.len())
             .map(|m| {
                 let id = Model::best_label(
@@ -331,6 +350,7 @@ impl Model {
             tags,
             heads: decoded.heads[1..].to_vec(),
             labels,
+            confidences,
             score: decoded.score,
         }
     }

@@ -32,6 +32,8 @@ pub enum Command {
     DemoData(DemoDataOptions),
     /// Publish, list, promote, roll back, verify, fetch and prune model versions.
     Store(StoreOptions),
+    /// Serve every live model of a store over gRPC and HTTP/JSON, following model changes.
+    Serve(crate::server::config::ServeArgs),
 }
 
 #[derive(Debug, Args)]

@@ -4,6 +4,7 @@
 
 mod cli;
 mod commands;
+mod server;
 
 use std::process::ExitCode;
 
@@ -19,6 +20,7 @@ fn main() -> ExitCode {
         cli::Command::Parse(options) => commands::parse::run(&options),
         cli::Command::DemoData(options) => commands::demo::run(&options),
         cli::Command::Store(options) => commands::store::run(&options),
+        cli::Command::Serve(options) => serve(&options),
     };
     match outcome {
         Ok(()) => ExitCode::SUCCESS,
@@ -27,4 +29,18 @@ fn main() -> ExitCode {
             ExitCode::from(failure.exit_code)
         }
     }
+}
+
+/// `arcwright serve`: validate the configuration, then run the service on a tokio runtime.
+fn serve(args: &server::config::ServeArgs) -> Result<(), commands::Failure> {
+    server::init_tracing(args.log_json);
+    let config = args.validate().map_err(commands::Failure::bad_input)?;
+    let runtime = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .map_err(commands::Failure::runtime)?;
+    runtime
+        .block_on(server::run(config))
+        .map_err(commands::Failure::runtime)
 }

@@ -1,0 +1,44 @@
+//! First run on an empty store: build the demo model (seconds), publish it as `demo` and make
+//! it `live`, so `arcwright serve` works on a fresh clone. Demo data only — an invented scenario.
+
+use arcwright_parser::demo;
+use arcwright_parser::train::{self, Example, TrainOptions};
+use arcwright_store::Store;
+
+/// Does nothing if any model in the store has a `live` alias.
+pub async fn ensure_some_model(store: &Store) -> Result<(), String> {
+    for name in store.names().await.map_err(|e| e.to_string())? {
+        if store
+            .alias(&name, "live")
+            .await
+            .map_err(|e| e.to_string())?
+            .is_some()
+        {
+            return Ok(());
+        }
+    }
+    tracing::info!(store = %store.url(), "the store has no live model: building the demo model (invented harbour-crew sentences; a few seconds)");
+    let started = std::time::Instant::now();
+    let dir = std::env::temp_dir().join(format!("arcwright-demo-model-{}", std::process::id()));
+    let build_dir = dir.clone();
+    tokio::task::spawn_blocking(move || -> Result<(), String> {
+        let examples: Vec<Example> = demo::corpus(1500, 20261201, None, 80).iter().filter_map(Example::from_sentence).collect();
+        let options = TrainOptions { epochs: 3, jackknife_folds: 0, ..TrainOptions::default() };
+        let mut model = train::train(&examples, &[], &options, &mut |_, _| {});
+        model.training = serde_json::json!({"data": "arcwright demo-data (invented scenario)", "sentences": examples.len()});
+        model.save(&build_dir).map_err(|e| e.to_string())
+    })
+    .await
+    .map_err(|e| e.to_string())??;
+    let manifest = store
+        .publish("demo", &dir, None)
+        .await
+        .map_err(|e| e.to_string())?;
+    store
+        .set_alias("demo", "live", &manifest.version)
+        .await
+        .map_err(|e| e.to_string())?;
+    let _ = std::fs::remove_dir_all(&dir);
+    tracing::info!(version = %manifest.version, seconds = started.elapsed().as_secs_f64(), "demo model published as demo/live");
+    Ok(())
+}

@@ -1,0 +1,300 @@
+//! The gRPC front door (tonic): `arcwright.v1.Parser` and `arcwright.v1.ModelAdmin`. Decodes
+//! protobuf messages into the core request path and encodes its results.
+
+use std::pin::Pin;
+use std::sync::Arc;
+use std::time::Duration;
+
+use futures::Stream;
+use tokio_stream::StreamExt;
+use tonic::{Request, Response, Status, Streaming};
+
+use super::AppState;
+use super::errors::ApiError;
+use super::request::{ParseJob, ParseOutcome, SentenceInput, TokenOut};
+
+pub mod proto {
+    tonic::include_proto!("arcwright.v1");
+    pub const DESCRIPTOR: &[u8] =
+        include_bytes!(concat!(env!("OUT_DIR"), "/arcwright_descriptor.bin"));
+}
+
+use proto::model_admin_server::ModelAdmin;
+use proto::parser_server::Parser;
+
+#[derive(Debug, Clone)]
+pub struct ParserService {
+    pub state: Arc<AppState>,
+}
+
+#[derive(Debug, Clone)]
+pub struct AdminService {
+    pub state: Arc<AppState>,
+}
+
+fn decoder_name(value: i32) -> Result<Option<String>, ApiError> {
+    match proto::Decoder::try_from(value) {
+        Ok(proto::Decoder::Unspecified) => Ok(None),
+        Ok(proto::Decoder::Projective) => Ok(Some("projective".into())),
+        Ok(proto::Decoder::NonProjective) => Ok(Some("non-projective".into())),
+        Err(_) => Err(ApiError::invalid(
+            "unknown_decoder",
+            format!("unknown decoder value {value}"),
+        )),
+    }
+}
+
+fn input(message: Option<proto::SentenceInput>) -> SentenceInput {
+    let Some(message) = message else {
+        return SentenceInput::default();
+    };
+    let tags = (!message.tags.is_empty()).then_some(message.tags);
+    match message.input {
+        Some(proto::sentence_input::Input::Text(text)) => SentenceInput {
+            text: Some(text),
+            tokens: None,
+            tags,
+        },
+        Some(proto::sentence_input::Input::Tokens(list)) => SentenceInput {
+            text: None,
+            tokens: Some(list.tokens),
+            tags,
+        },
+        None => SentenceInput {
+            text: None,
+            tokens: None,
+            tags,
+        },
+    }
+}
+
+fn sentence(tokens: Vec<TokenOut>) -> proto::ParsedSentence {
+    proto::ParsedSentence {
+        tokens: tokens
+            .into_iter()
+            .map(|t| proto::Token {
+                id: t.id as u32,
+                form: t.form,
+                tag: t.tag,
+                head: t.head as u32,
+                label: t.label,
+                confidence: t.confidence,
+            })
+            .collect(),
+    }
+}
+
+fn model_ref(outcome: &ParseOutcome) -> proto::ModelRef {
+    proto::ModelRef {
+        name: outcome.model_name.clone(),
+        version: outcome.model_version.clone(),
+    }
+}
+
+/// The request's deadline: the server's, or less if the client sent `grpc-timeout`.
+fn deadline<T>(state: &AppState, request: &Request<T>) -> Duration {
+    let configured = state.engine.limits.deadline;
+    let Some(value) = request
+        .metadata()
+        .get("grpc-timeout")
+        .and_then(|v| v.to_str().ok())
+    else {
+        return configured;
+    };
+    let (digits, unit) = value.split_at(value.len().saturating_sub(1));
+    let Ok(amount) = digits.parse::<u64>() else {
+        return configured;
+    };
+    let asked = match unit {
+        "H" => Duration::from_secs(amount * 3600),
+        "M" => Duration::from_secs(amount * 60),
+        "S" => Duration::from_secs(amount),
+        "m" => Duration::from_millis(amount),
+        "u" => Duration::from_micros(amount),
+        "n" => Duration::from_nanos(amount),
+        _ => return configured,
+    };
+    asked.min(configured)
+}
+
+async fn parse_one(
+    state: &AppState,
+    message: proto::ParseRequest,
+    deadline: Duration,
+    method: &str,
+) -> Result<proto::ParseResponse, ApiError> {
+    let job = ParseJob {
+        model: Some(message.model),
+        decoder: decoder_name(message.decoder)?,
+        confidence: message.confidence,
+        inputs: vec![input(message.input)],
+    };
+    let mut outcome = state.engine.parse(job, deadline, "grpc", method).await?;
+    let sentences = outcome
+        .results
+        .pop()
+        .unwrap_or_default()
+        .into_iter()
+        .map(sentence)
+        .collect();
+    Ok(proto::ParseResponse {
+        model: Some(model_ref(&outcome)),
+        sentences,
+        id: message.id,
+    })
+}
+
+type ResponseStream = Pin<Box<dyn Stream<Item = Result<proto::ParseResponse, Status>> + Send>>;
+
+#[tonic::async_trait]
+impl Parser for ParserService {
+    async fn parse(
+        &self,
+        request: Request<proto::ParseRequest>,
+    ) -> Result<Response<proto::ParseResponse>, Status> {
+        let deadline = deadline(&self.state, &request);
+        Ok(Response::new(
+            parse_one(&self.state, request.into_inner(), deadline, "parse").await?,
+        ))
+    }
+
+    async fn parse_batch(
+        &self,
+        request: Request<proto::ParseBatchRequest>,
+    ) -> Result<Response<proto::ParseBatchResponse>, Status> {
+        let deadline = deadline(&self.state, &request);
+        let message = request.into_inner();
+        let job = ParseJob {
+            model: Some(message.model),
+            decoder: decoder_name(message.decoder)?,
+            confidence: message.confidence,
+            inputs: message
+                .sentences
+                .into_iter()
+                .map(|s| input(Some(s)))
+                .collect(),
+        };
+        let outcome = self
+            .state
+            .engine
+            .parse(job, deadline, "grpc", "parse_batch")
+            .await?;
+        let model = Some(model_ref(&outcome));
+        let results = outcome
+            .results
+            .into_iter()
+            .map(|sentences| proto::BatchResult {
+                sentences: sentences.into_iter().map(sentence).collect(),
+            })
+            .collect();
+        Ok(Response::new(proto::ParseBatchResponse { model, results }))
+    }
+
+    type ParseStreamStream = ResponseStream;
+
+    async fn parse_stream(
+        &self,
+        request: Request<Streaming<proto::ParseRequest>>,
+    ) -> Result<Response<ResponseStream>, Status> {
+        let deadline = deadline(&self.state, &request);
+        let mut incoming = request.into_inner();
+        let state = self.state.clone();
+        let (sender, receiver) = tokio::sync::mpsc::channel(16);
+        tokio::spawn(async move {
+            while let Some(message) = incoming.next().await {
+                let reply = match message {
+                    Ok(message) => parse_one(&state, message, deadline, "parse_stream")
+                        .await
+                        .map_err(Status::from),
+                    Err(status) => Err(status),
+                };
+                let failed = reply.is_err();
+                if sender.send(reply).await.is_err() || failed {
+                    break;
+                }
+            }
+        });
+        Ok(Response::new(Box::pin(
+            tokio_stream::wrappers::ReceiverStream::new(receiver),
+        )))
+    }
+}
+
+fn admin_check<T>(state: &AppState, request: &Request<T>) -> Result<(), Status> {
+    let header = request
+        .metadata()
+        .get("authorization")
+        .and_then(|v| v.to_str().ok());
+    super::http::check_admin(state, header).map_err(Status::from)
+}
+
+#[tonic::async_trait]
+impl ModelAdmin for AdminService {
+    async fn list_models(
+        &self,
+        _request: Request<proto::ListModelsRequest>,
+    ) -> Result<Response<proto::ListModelsResponse>, Status> {
+        let status = super::models_status(&self.state).await?;
+        let models = status["models"]
+            .as_array()
+            .map(|models| {
+                models
+                    .iter()
+                    .map(|m| proto::ModelStatus {
+                        name: m["name"].as_str().unwrap_or_default().to_string(),
+                        live_version: m["live"].as_str().unwrap_or_default().to_string(),
+                        serving_version: m["serving"]["version"]
+                            .as_str()
+                            .unwrap_or_default()
+                            .to_string(),
+                        is_default: m["default"].as_bool().unwrap_or(false),
+                        versions: m["versions"]
+                            .as_array()
+                            .map(|vs| {
+                                vs.iter()
+                                    .map(|v| proto::ModelVersion {
+                                        version: v["version"]
+                                            .as_str()
+                                            .unwrap_or_default()
+                                            .to_string(),
+                                        size_bytes: v["size_bytes"].as_u64().unwrap_or(0),
+                                        created: v["created"]
+                                            .as_str()
+                                            .unwrap_or_default()
+                                            .to_string(),
+                                        aliases: v["aliases"]
+                                            .as_array()
+                                            .map(|a| {
+                                                a.iter()
+                                                    .filter_map(|x| x.as_str().map(str::to_string))
+                                                    .collect()
+                                            })
+                                            .unwrap_or_default(),
+                                    })
+                                    .collect()
+                            })
+                            .unwrap_or_default(),
+                    })
+                    .collect()
+            })
+            .unwrap_or_default();
+        Ok(Response::new(proto::ListModelsResponse { models }))
+    }
+
+    async fn activate_model(
+        &self,
+        request: Request<proto::ActivateModelRequest>,
+    ) -> Result<Response<proto::ActivateModelResponse>, Status> {
+        admin_check(&self.state, &request)?;
+        let message = request.into_inner();
+        let (version, previous) =
+            super::activate(&self.state, &message.name, &message.version).await?;
+        Ok(Response::new(proto::ActivateModelResponse {
+            model: Some(proto::ModelRef {
+                name: message.name,
+                version,
+            }),
+            previous_version: previous.unwrap_or_default(),
+        }))
+    }
+}

@@ -1,0 +1,180 @@
+//! Prometheus metrics (names per the contract), recorded on the one request path.
+
+use std::sync::LazyLock;
+
+use prometheus::{
+    Encoder, HistogramOpts, HistogramVec, IntCounterVec, IntGauge, IntGaugeVec, Opts, Registry,
+    TextEncoder,
+};
+
+pub static REGISTRY: LazyLock<Registry> = LazyLock::new(Registry::new);
+
+fn register<T: prometheus::core::Collector + Clone + 'static>(metric: T) -> T {
+    // Registration fails only for duplicate names, which the names below rule out.
+    let _ = REGISTRY.register(Box::new(metric.clone()));
+    metric
+}
+
+/// Per-stage durations by decoder and power-of-two length bucket.
+pub static STAGE_DURATION: LazyLock<HistogramVec> = LazyLock::new(|| {
+    let buckets = prometheus::exponential_buckets(0.000_005, 2.0, 22).unwrap_or_default();
+    register(
+        HistogramVec::new(
+            HistogramOpts::new(
+                "arcwright_stage_duration_seconds",
+                "Time spent per parsing stage, by decoder and sentence length bucket",
+            )
+            .buckets(buckets),
+            &["stage", "decoder", "length_bucket"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub static REQUESTS: LazyLock<IntCounterVec> = LazyLock::new(|| {
+    register(
+        IntCounterVec::new(
+            Opts::new(
+                "arcwright_requests_total",
+                "Requests by API, method and status code",
+            ),
+            &["api", "method", "code"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub static SENTENCES: LazyLock<IntCounterVec> = LazyLock::new(|| {
+    register(
+        IntCounterVec::new(
+            Opts::new("arcwright_sentences_total", "Sentences parsed"),
+            &["decoder"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub static TOKENS: LazyLock<IntCounterVec> = LazyLock::new(|| {
+    register(
+        IntCounterVec::new(
+            Opts::new("arcwright_tokens_total", "Tokens parsed"),
+            &["decoder"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub static IN_FLIGHT: LazyLock<IntGauge> = LazyLock::new(|| {
+    register(
+        IntGauge::new(
+            "arcwright_in_flight_requests",
+            "Requests being parsed or queued",
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub static SHED: LazyLock<IntCounterVec> = LazyLock::new(|| {
+    register(
+        IntCounterVec::new(
+            Opts::new(
+                "arcwright_shed_requests_total",
+                "Requests refused because too many were in flight",
+            ),
+            &["api"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub static MODEL_INFO: LazyLock<IntGaugeVec> = LazyLock::new(|| {
+    register(
+        IntGaugeVec::new(
+            Opts::new(
+                "arcwright_model_info",
+                "1 for each model version being served",
+            ),
+            &["name", "version"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub static MODEL_LOAD_SECONDS: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_model_load_seconds",
+                "Fetch, verify and load time of the served version",
+            ),
+            &["name"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub static SWAPS: LazyLock<IntCounterVec> = LazyLock::new(|| {
+    register(
+        IntCounterVec::new(
+            Opts::new(
+                "arcwright_model_swaps_total",
+                "Model swap attempts by result",
+            ),
+            &["name", "result"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// The power-of-two upper bound of a sentence length: 8, 16, … 512, +Inf.
+pub fn length_bucket(tokens: usize) -> &'static str {
+    const BOUNDS: [(usize, &str); 7] = [
+        (8, "8"),
+        (16, "16"),
+        (32, "32"),
+        (64, "64"),
+        (128, "128"),
+        (256, "256"),
+        (512, "512"),
+    ];
+    BOUNDS
+        .iter()
+        .find(|(b, _)| tokens <= *b)
+        .map_or("+Inf", |(_, s)| s)
+}
+
+pub fn record_swap(name: &str, ok: bool) {
+    SWAPS
+        .with_label_values(&[name, if ok { "ok" } else { "failed" }])
+        .inc();
+}
+
+pub fn set_model_info(name: &str, previous: Option<&str>, version: &str, load_seconds: f64) {
+    if let Some(previous) = previous {
+        let _ = MODEL_INFO.remove_label_values(&[name, previous]);
+    }
+    MODEL_INFO.with_label_values(&[name, version]).set(1);
+    MODEL_LOAD_SECONDS
+        .with_label_values(&[name])
+        .set(load_seconds);
+}
+
+/// Touches every metric family so that `/metrics` lists them before the first request.
+pub fn init() {
+    LazyLock::force(&STAGE_DURATION);
+    LazyLock::force(&REQUESTS);
+    LazyLock::force(&SENTENCES);
+    LazyLock::force(&TOKENS);
+    LazyLock::force(&IN_FLIGHT);
+    LazyLock::force(&SHED);
+    LazyLock::force(&MODEL_INFO);
+    LazyLock::force(&MODEL_LOAD_SECONDS);
+    LazyLock::force(&SWAPS);
+}
+
+/// The text exposition of every metric.
+pub fn render() -> String {
+    let mut buffer = Vec::new();
+    let _ = TextEncoder::new().encode(&REGISTRY.gather(), &mut buffer);
+    String::from_utf8(buffer).unwrap_or_default()
+}

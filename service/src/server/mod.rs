@@ -1,0 +1,302 @@
+//! `arcwright serve`: the long-running parsing service.
+//!
+//! Startup reads like a story: tracing; validated configuration; the store (bootstrapping the
+//! demo model into an empty store); the first load of every model with a `live` alias; the
+//! compute pool; both listeners bound and logged with a ready-to-paste example; the store
+//! follower (hot-swap); serving until SIGTERM/SIGINT; then stop accepting, drain in-flight
+//! requests within the grace period, exit 0.
+
+pub mod config;
+mod demo_model;
+pub mod errors;
+mod grpc;
+mod http;
+pub mod metrics;
+mod openapi;
+mod registry;
+mod request;
+
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
+
+use arcwright_store::Store;
+use tokio::sync::Semaphore;
+
+use errors::{ApiError, Kind};
+use registry::Registry;
+use request::Engine;
+
+/// Everything the front doors share.
+#[derive(Debug)]
+pub struct AppState {
+    pub engine: Engine,
+    pub admin_token: Option<String>,
+    pub draining: AtomicBool,
+}
+
+/// A short unique request id (process-unique counter plus time).
+pub fn new_request_id() -> String {
+    static COUNTER: AtomicU64 = AtomicU64::new(0);
+    let n = COUNTER.fetch_add(1, Ordering::Relaxed);
+    let t = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_micros());
+    format!("{:x}-{n:x}", t & 0xffff_ffff_ffff)
+}
+
+/// Every model: versions in the store, the `live` target, the version being served.
+pub async fn models_status(state: &AppState) -> Result<serde_json::Value, ApiError> {
+    let registry = &state.engine.registry;
+    let store = registry.store();
+    let unavailable = |e: arcwright_store::StoreError| {
+        ApiError::new(Kind::Unavailable, "store_unavailable", e.to_string())
+    };
+    let mut names = store.names().await.map_err(unavailable)?;
+    for (name, _) in registry.serving() {
+        if !names.contains(&name) {
+            names.push(name);
+        }
+    }
+    let default = registry.default_name();
+    let serving: std::collections::BTreeMap<String, Arc<registry::Served>> =
+        registry.serving().into_iter().collect();
+    let mut models = Vec::new();
+    for name in names {
+        let listed = store.list(&name).await.map_err(unavailable)?;
+        let live = store
+            .alias(&name, "live")
+            .await
+            .map_err(unavailable)?
+            .map(|r| r.version);
+        let aliases = store.aliases(&name).await.map_err(unavailable)?;
+        let versions: Vec<serde_json::Value> = listed
+            .iter()
+            .map(|v| {
+                serde_json::json!({
+                    "version": v.manifest.version, "size_bytes": v.manifest.size(), "created": v.manifest.created,
+                    "aliases": v.aliases, "scores": v.manifest.scores,
+                })
+            })
+            .collect();
+        let served = serving.get(&name).map(|s| {
+            serde_json::json!({
+                "version": s.version,
+                "load_seconds": s.load_seconds,
+                "loaded_at_unix_ms": s.loaded_at.duration_since(std::time::UNIX_EPOCH).map_or(0, |d| d.as_millis()),
+                "default_decoder": s.model.default_decoder.name(),
+            })
+        });
+        models.push(serde_json::json!({
+            "name": name,
+            "default": default.as_deref() == Some(name.as_str()),
+            "live": live,
+            "aliases": aliases.iter().map(|(a, r)| (a.clone(), serde_json::json!(r.version))).collect::<serde_json::Map<_, _>>(),
+            "serving": served,
+            "versions": versions,
+            "swaps": registry.swaps().into_iter().filter(|e| e.name == name).collect::<Vec<_>>(),
+        }));
+    }
+    Ok(serde_json::json!({ "models": models }))
+}
+
+/// Moves the store's `live` alias to `version` (all replicas follow) and swaps this replica at
+/// once. Returns the new and the previous version.
+pub async fn activate(
+    state: &AppState,
+    name: &str,
+    version: &str,
+) -> Result<(String, Option<String>), ApiError> {
+    let registry = &state.engine.registry;
+    let store_error = |e: arcwright_store::StoreError| match e {
+        arcwright_store::StoreError::InvalidName { .. } => {
+            ApiError::invalid("invalid_name", e.to_string())
+        }
+        arcwright_store::StoreError::NotFound { .. } => {
+            ApiError::new(Kind::NotFound, "unknown_version", e.to_string())
+        }
+        arcwright_store::StoreError::Corrupt { .. }
+        | arcwright_store::StoreError::UnknownSchema { .. } => {
+            ApiError::invalid("unusable_version", e.to_string())
+        }
+        other => ApiError::new(Kind::Unavailable, "store_unavailable", other.to_string()),
+    };
+    let record = registry
+        .store()
+        .set_alias(name, "live", version)
+        .await
+        .map_err(store_error)?;
+    registry.load_and_swap(name, version).await.map_err(|m| {
+        ApiError::new(
+            Kind::Internal,
+            "load_failed",
+            format!("the alias moved but this replica could not load it: {m}"),
+        )
+    })?;
+    Ok((record.version, record.history.first().cloned()))
+}
+
+/// Builds the app state (no sockets): used by `run` and by tests.
+pub async fn build_state(config: &config::Config) -> Result<Arc<AppState>, String> {
+    metrics::init();
+    let store = Store::open(&config.store).map_err(|e| e.to_string())?;
+    demo_model::ensure_some_model(&store).await?;
+    let registry = Arc::new(Registry::new(
+        store,
+        config.cache_dir.clone(),
+        config.default_model.clone(),
+    ));
+    let serving = registry.follow_once().await;
+    if serving == 0 {
+        return Err(format!(
+            "no model could be loaded from {} (see the log)",
+            config.store
+        ));
+    }
+    if let Some(name) = &config.default_model {
+        registry
+            .snapshot(Some(name))
+            .map_err(|e| format!("--default-model: {e}"))?;
+    }
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(config.threads)
+        .thread_name(|i| format!("parse-{i}"))
+        .build()
+        .map_err(|e| e.to_string())?;
+    Ok(Arc::new(AppState {
+        engine: Engine {
+            registry,
+            pool,
+            limits: config.limits.clone(),
+            permits: Arc::new(Semaphore::new(config.limits.max_in_flight)),
+        },
+        admin_token: config.admin_token.clone(),
+        draining: AtomicBool::new(false),
+    }))
+}
+
+pub fn init_tracing(json: bool) {
+    let filter = tracing_subscriber::EnvFilter::try_from_env("ARCWRIGHT_LOG")
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info"));
+    let builder = tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_writer(std::io::stderr);
+    let _ = if json {
+        builder.json().try_init()
+    } else {
+        builder.try_init()
+    };
+}
+
+/// Runs the service until SIGTERM/SIGINT, then drains and returns.
+pub async fn run(config: config::Config) -> Result<(), String> {
+    let state = build_state(&config).await?;
+    let registry = state.engine.registry.clone();
+    for (name, served) in registry.serving() {
+        tracing::info!(model = %name, version = %served.version, load_seconds = served.load_seconds, "serving model");
+    }
+    let http_listener = tokio::net::TcpListener::bind(config.http)
+        .await
+        .map_err(|e| format!("HTTP {}: {e}", config.http))?;
+    let grpc_listener = tokio::net::TcpListener::bind(config.grpc)
+        .await
+        .map_err(|e| format!("gRPC {}: {e}", config.grpc))?;
+    let http_addr = http_listener.local_addr().map_err(|e| e.to_string())?;
+    let grpc_addr = grpc_listener.local_addr().map_err(|e| e.to_string())?;
+    tracing::info!(%http_addr, %grpc_addr, store = %config.store, threads = config.threads, "listening");
+    eprintln!(
+        "arcwright is serving: HTTP on http://{http_addr}, gRPC on {grpc_addr}\n  try: curl -s http://{http_addr}/v1/parse -d '{{\"text\": \"The crane operator moved a blue container.\"}}'\n  gRPC: grpcurl -plaintext -d '{{\"input\": {{\"text\": \"The pilot signed the manifest.\"}}}}' {grpc_addr} arcwright.v1.Parser/Parse"
+    );
+    let follower = tokio::spawn(registry.clone().follow(config.poll));
+
+    let (shutdown_tx, shutdown_rx) = tokio::sync::watch::channel(false);
+    let http_state = state.clone();
+    let mut http_shutdown = shutdown_rx.clone();
+    let http = tokio::spawn(async move {
+        axum::serve(http_listener, http::router(http_state))
+            .with_graceful_shutdown(async move {
+                let _ = http_shutdown.wait_for(|stop| *stop).await;
+            })
+            .await
+    });
+    let (health_reporter, health_service) = tonic_health::server::health_reporter();
+    health_reporter
+        .set_serving::<grpc::proto::parser_server::ParserServer<grpc::ParserService>>()
+        .await;
+    health_reporter
+        .set_service_status("", tonic_health::ServingStatus::Serving)
+        .await;
+    let reflection = tonic_reflection::server::Builder::configure()
+        .register_encoded_file_descriptor_set(grpc::proto::DESCRIPTOR)
+        .register_encoded_file_descriptor_set(tonic_health::pb::FILE_DESCRIPTOR_SET)
+        .build_v1()
+        .map_err(|e| e.to_string())?;
+    let max_message = config.limits.max_body_bytes;
+    let parser_service = grpc::proto::parser_server::ParserServer::new(grpc::ParserService {
+        state: state.clone(),
+    })
+    .max_decoding_message_size(max_message);
+    let admin_service =
+        grpc::proto::model_admin_server::ModelAdminServer::new(grpc::AdminService {
+            state: state.clone(),
+        })
+        .max_decoding_message_size(max_message);
+    let mut grpc_shutdown = shutdown_rx.clone();
+    let grpc = tokio::spawn(async move {
+        tonic::transport::Server::builder()
+            .add_service(health_service)
+            .add_service(reflection)
+            .add_service(parser_service)
+            .add_service(admin_service)
+            .serve_with_incoming_shutdown(
+                tokio_stream::wrappers::TcpListenerStream::new(grpc_listener),
+                async move {
+                    let _ = grpc_shutdown.wait_for(|stop| *stop).await;
+                },
+            )
+            .await
+    });
+
+    wait_for_signal().await;
+    tracing::info!(
+        grace_seconds = config.grace.as_secs_f64(),
+        "shutting down: no new connections, draining in-flight requests"
+    );
+    state.draining.store(true, Ordering::Relaxed);
+    health_reporter
+        .set_service_status("", tonic_health::ServingStatus::NotServing)
+        .await;
+    let _ = shutdown_tx.send(true);
+    follower.abort();
+    let drained = tokio::time::timeout(config.grace, async {
+        let _ = http.await;
+        let _ = grpc.await;
+    })
+    .await;
+    if drained.is_err() {
+        tracing::warn!("grace period over; exiting with requests still open");
+    } else {
+        tracing::info!("drained; bye");
+    }
+    Ok(())
+}
+
+async fn wait_for_signal() {
+    let ctrl_c = async {
+        let _ = tokio::signal::ctrl_c().await;
+    };
+    #[cfg(unix)]
+    let terminate = async {
+        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+            Ok(mut signal) => {
+                signal.recv().await;
+            }
+            Err(_) => std::future::pending::<()>().await,
+        }
+    };
+    #[cfg(not(unix))]
+    let terminate = std::future::pending::<()>();
+    tokio::select! {
+        _ = ctrl_c => {},
+        _ = terminate => {},
+    }
+}

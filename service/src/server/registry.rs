@@ -1,0 +1,270 @@
+//! The models being served and the hot-swap machinery.
+//!
+//! Mutable host, immutable snapshots: each model name has an `ArcSwap<Served>`; a request takes
+//! one `Arc<Served>` at its start and keeps it to the end, so a swap never affects a request in
+//! flight. A new version is fetched (every checksum verified), loaded and smoke-parsed in the
+//! background before the atomic swap; any failure leaves the old version serving and is logged
+//! and counted.
+
+use std::collections::BTreeMap;
+use std::path::PathBuf;
+use std::sync::{Arc, Mutex, RwLock};
+use std::time::{Duration, Instant, SystemTime};
+
+use arc_swap::ArcSwap;
+use arcwright_parser::model::Model;
+use arcwright_store::Store;
+
+use super::errors::{ApiError, Kind};
+
+/// One loaded model version (immutable).
+#[derive(Debug)]
+pub struct Served {
+    pub name: String,
+    pub version: String,
+    pub model: Model,
+    pub loaded_at: SystemTime,
+    pub load_seconds: f64,
+}
+
+/// A swap attempt, for `/v1/models` and the operator console.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct SwapEvent {
+    pub name: String,
+    pub from: Option<String>,
+    pub to: String,
+    pub ok: bool,
+    pub message: String,
+    pub at_unix_ms: u128,
+}
+
+#[derive(Debug)]
+pub struct Registry {
+    store: Store,
+    cache: PathBuf,
+    configured_default: Option<String>,
+    models: RwLock<BTreeMap<String, Arc<ArcSwap<Served>>>>,
+    swaps: Mutex<Vec<SwapEvent>>,
+    /// Serializes loads of the same model (the follower and an admin activation).
+    loading: tokio::sync::Mutex<()>,
+}
+
+fn unix_ms() -> u128 {
+    SystemTime::now()
+        .duration_since(SystemTime::UNIX_EPOCH)
+        .map_or(0, |d| d.as_millis())
+}
+
+impl Registry {
+    pub fn new(store: Store, cache: PathBuf, configured_default: Option<String>) -> Self {
+        Registry {
+            store,
+            cache,
+            configured_default,
+            models: RwLock::new(BTreeMap::new()),
+            swaps: Mutex::new(Vec::new()),
+            loading: tokio::sync::Mutex::new(()),
+        }
+    }
+
+    pub fn store(&self) -> &Store {
+        &self.store
+    }
+
+    /// The default model's name: the configured one, else the only one, else the first by name.
+    pub fn default_name(&self) -> Option<String> {
+        if let Some(name) = &self.configured_default {
+            return Some(name.clone());
+        }
+        self.models.read().ok()?.keys().next().cloned()
+    }
+
+    /// The snapshot to use for a request.
+    pub fn snapshot(&self, name: Option<&str>) -> Result<Arc<Served>, ApiError> {
+        let name = match name.filter(|n| !n.is_empty()) {
+            Some(n) => n.to_string(),
+            None => self.default_name().ok_or_else(|| {
+                ApiError::new(Kind::Unavailable, "no_model", "no model is loaded yet")
+            })?,
+        };
+        let models = self
+            .models
+            .read()
+            .map_err(|_| ApiError::new(Kind::Internal, "internal", "registry lock poisoned"))?;
+        match models.get(&name) {
+            Some(slot) => Ok(slot.load_full()),
+            None => {
+                let known: Vec<&str> = models.keys().map(String::as_str).collect();
+                Err(ApiError::new(
+                    Kind::NotFound,
+                    "unknown_model",
+                    format!("unknown model {name:?}; serving: {}", known.join(", ")),
+                ))
+            }
+        }
+    }
+
+    /// Names and serving versions.
+    pub fn serving(&self) -> Vec<(String, Arc<Served>)> {
+        self.models
+            .read()
+            .map(|m| m.iter().map(|(k, v)| (k.clone(), v.load_full())).collect())
+            .unwrap_or_default()
+    }
+
+    pub fn swaps(&self) -> Vec<SwapEvent> {
+        self.swaps.lock().map(|s| s.clone()).unwrap_or_default()
+    }
+
+    pub fn is_ready(&self) -> bool {
+        self.models.read().is_ok_and(|m| !m.is_empty())
+    }
+
+    fn record(&self, event: SwapEvent) {
+        if event.ok {
+            tracing::info!(model = %event.name, from = ?event.from, to = %event.to, "model swapped");
+        } else {
+            tracing::warn!(model = %event.name, to = %event.to, error = %event.message, "model swap failed; previous version keeps serving");
+        }
+        super::metrics::record_swap(&event.name, event.ok);
+        if let Ok(mut swaps) = self.swaps.lock() {
+            swaps.push(event);
+            let excess = swaps.len().saturating_sub(50);
+            swaps.drain(..excess);
+        }
+    }
+
+    /// Fetches, verifies, loads and smoke-parses `version`, then swaps it in. The old version
+    /// keeps serving if anything fails.
+    pub async fn load_and_swap(&self, name: &str, version: &str) -> Result<Arc<Served>, String> {
+        let _guard = self.loading.lock().await;
+        let previous = self
+            .models
+            .read()
+            .ok()
+            .and_then(|m| m.get(name).map(|s| s.load().version.clone()));
+        if previous.as_deref() == Some(version) {
+            return self.snapshot(Some(name)).map_err(|e| e.to_string());
+        }
+        let started = Instant::now();
+        let outcome = async {
+            let (dir, _) = self
+                .store
+                .fetch(name, version, &self.cache)
+                .await
+                .map_err(|e| e.to_string())?;
+            let model = tokio::task::spawn_blocking(move || -> Result<Model, String> {
+                let model = Model::load(&dir).map_err(|e| e.to_string())?;
+                // Smoke test: a parse must produce a tree.
+                let words: Vec<String> = ["a", "small", "test", "."]
+                    .iter()
+                    .map(|s| s.to_string())
+                    .collect();
+                let parsed = model.parse(&words, None, None, None);
+                let mut heads = vec![0];
+                heads.extend(&parsed.heads);
+                arcwright_parser::decode::check_tree(&heads)
+                    .map_err(|e| format!("smoke parse failed: {e}"))?;
+                Ok(model)
+            })
+            .await
+            .map_err(|e| format!("loader task failed: {e}"))??;
+            Ok::<_, String>(model)
+        }
+        .await;
+        match outcome {
+            Ok(model) => {
+                let served = Arc::new(Served {
+                    name: name.to_string(),
+                    version: version.to_string(),
+                    model,
+                    loaded_at: SystemTime::now(),
+                    load_seconds: started.elapsed().as_secs_f64(),
+                });
+                {
+                    let mut models = self
+                        .models
+                        .write()
+                        .map_err(|_| "registry lock poisoned".to_string())?;
+                    match models.get(name) {
+                        Some(slot) => slot.store(served.clone()),
+                        None => {
+                            models.insert(name.to_string(), Arc::new(ArcSwap::new(served.clone())));
+                        }
+                    }
+                }
+                super::metrics::set_model_info(
+                    name,
+                    previous.as_deref(),
+                    version,
+                    served.load_seconds,
+                );
+                self.record(SwapEvent {
+                    name: name.into(),
+                    from: previous,
+                    to: version.into(),
+                    ok: true,
+                    message: String::new(),
+                    at_unix_ms: unix_ms(),
+                });
+                Ok(served)
+            }
+            Err(message) => {
+                self.record(SwapEvent {
+                    name: name.into(),
+                    from: previous,
+                    to: version.into(),
+                    ok: false,
+                    message: message.clone(),
+                    at_unix_ms: unix_ms(),
+                });
+                Err(message)
+            }
+        }
+    }
+
+    /// One pass of following the store: every model with a `live` alias is loaded or swapped to
+    /// the alias's target. Returns how many models are serving.
+    pub async fn follow_once(&self) -> usize {
+        let names = match self.store.names().await {
+            Ok(names) => names,
+            Err(e) => {
+                tracing::warn!(error = %e, "cannot list models in the store; will retry");
+                return self.serving().len();
+            }
+        };
+        for name in names {
+            match self.store.alias(&name, "live").await {
+                Ok(Some(record)) => {
+                    let serving = self
+                        .models
+                        .read()
+                        .ok()
+                        .and_then(|m| m.get(&name).map(|s| s.load().version.clone()));
+                    let failed_before = self
+                        .swaps()
+                        .iter()
+                        .rev()
+                        .find(|e| e.name == name && e.to == record.version)
+                        .is_some_and(|e| !e.ok);
+                    if serving.as_deref() != Some(record.version.as_str()) && !failed_before {
+                        let _ = self.load_and_swap(&name, &record.version).await;
+                    }
+                }
+                Ok(None) => {}
+                Err(e) => {
+                    tracing::warn!(model = %name, error = %e, "cannot read the live alias; will retry")
+                }
+            }
+        }
+        self.serving().len()
+    }
+
+    /// Follows the store forever, every `interval` (backing off up to 8× while the store fails).
+    pub async fn follow(self: Arc<Self>, interval: Duration) {
+        loop {
+            tokio::time::sleep(interval).await;
+            self.follow_once().await;
+        }
+    }
+}

@@ -1,0 +1,425 @@
+//! The one request path shared by gRPC and HTTP: validate → take a model snapshot → tokenize →
+//! tag, score, decode, label (on the compute pool) → results that name the model version.
+//! The front doors only decode their wire format into [`ParseJob`] and encode [`ParseOutcome`].
+
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+
+use arcwright_parser::decode::Algorithm;
+use arcwright_parser::tokenize;
+use tokio::sync::Semaphore;
+
+use super::config::Limits;
+use super::errors::{ApiError, Kind};
+use super::metrics;
+use super::registry::{Registry, Served};
+
+/// One input: raw text (may hold several sentences) or tokens (one sentence), optional tags.
+#[derive(Debug, Clone, Default)]
+pub struct SentenceInput {
+    pub text: Option<String>,
+    pub tokens: Option<Vec<String>>,
+    pub tags: Option<Vec<String>>,
+}
+
+/// A parse request in core terms.
+#[derive(Debug, Clone, Default)]
+pub struct ParseJob {
+    pub model: Option<String>,
+    pub decoder: Option<String>,
+    pub confidence: bool,
+    pub inputs: Vec<SentenceInput>,
+}
+
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct TokenOut {
+    pub id: usize,
+    pub form: String,
+    pub tag: String,
+    pub head: usize,
+    pub label: String,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub confidence: Option<f64>,
+}
+
+/// Results per input, each a list of sentences of tokens, in input order.
+#[derive(Debug, Clone)]
+pub struct ParseOutcome {
+    pub model_name: String,
+    pub model_version: String,
+    pub results: Vec<Vec<Vec<TokenOut>>>,
+}
+
+/// Shared state of the request path.
+#[derive(Debug)]
+pub struct Engine {
+    pub registry: Arc<Registry>,
+    pub pool: rayon::ThreadPool,
+    pub limits: Limits,
+    pub permits: Arc<Semaphore>,
+}
+
+/// A validated sentence ready for the pool.
+struct Work {
+    input: usize,
+    forms: Vec<String>,
+    tags: Option<Vec<String>>,
+}
+
+fn has_control(text: &str, allow_line_breaks: bool) -> Option<char> {
+    text.chars()
+        .find(|c| c.is_control() && !(allow_line_breaks && matches!(c, '\n' | '\r' | '\t')))
+}
+
+fn decoder(name: Option<&str>) -> Result<Option<Algorithm>, ApiError> {
+    match name.filter(|n| !n.is_empty()) {
+        None => Ok(None),
+        Some(n) => Algorithm::from_name(n).map(Some).ok_or_else(|| {
+            ApiError::invalid(
+                "unknown_decoder",
+                format!("unknown decoder {n:?}; use \"projective\" or \"non-projective\""),
+            )
+        }),
+    }
+}
+
+impl Engine {
+    /// Validates the job and splits it into sentences (no model needed yet).
+    fn validate(&self, job: &ParseJob) -> Result<Vec<Work>, ApiError> {
+        let limits = &self.limits;
+        if job.inputs.is_empty() {
+            return Err(ApiError::invalid("empty_batch", "no sentences given"));
+        }
+        if job.inputs.len() > limits.max_sentences {
+            return Err(ApiError::invalid(
+                "batch_too_large",
+                format!(
+                    "{} sentences in the batch; the limit is {}",
+                    job.inputs.len(),
+                    limits.max_sentences
+                ),
+            ));
+        }
+        let mut work = Vec::new();
+        for (index, input) in job.inputs.iter().enumerate() {
+            let at = if job.inputs.len() > 1 {
+                format!("sentence {index}: ")
+            } else {
+                String::new()
+            };
+            let invalid = |code: &'static str, message: String| {
+                ApiError::invalid(code, format!("{at}{message}"))
+            };
+            match (&input.text, &input.tokens) {
+                (Some(_), Some(_)) => {
+                    return Err(invalid(
+                        "text_and_tokens",
+                        "give either text or tokens, not both".into(),
+                    ));
+                }
+                (None, None) => return Err(invalid("no_input", "give text or tokens".into())),
+                (Some(text), None) => {
+                    if input.tags.is_some() {
+                        return Err(invalid(
+                            "tags_without_tokens",
+                            "tags can only be given with tokens".into(),
+                        ));
+                    }
+                    if let Some(c) = has_control(text, true) {
+                        return Err(invalid(
+                            "control_character",
+                            format!("text contains the control character {c:?}"),
+                        ));
+                    }
+                    let sentences = tokenize::sentences(text);
+                    if sentences.is_empty() {
+                        return Err(invalid("empty_text", "text has no words".into()));
+                    }
+                    if sentences.len() > limits.max_sentences {
+                        return Err(invalid(
+                            "too_many_sentences",
+                            format!(
+                                "text holds {} sentences; the limit is {}",
+                                sentences.len(),
+                                limits.max_sentences
+                            ),
+                        ));
+                    }
+                    for forms in sentences {
+                        if forms.len() > limits.max_tokens {
+                            return Err(invalid(
+                                "sentence_too_long",
+                                format!(
+                                    "a sentence has {} tokens; the limit is {}",
+                                    forms.len(),
+                                    limits.max_tokens
+                                ),
+                            ));
+                        }
+                        work.push(Work {
+                            input: index,
+                            forms,
+                            tags: None,
+                        });
+                    }
+                }
+                (None, Some(tokens)) => {
+                    if tokens.is_empty() {
+                        return Err(invalid("empty_tokens", "tokens is an empty list".into()));
+                    }
+                    if tokens.len() > limits.max_tokens {
+                        return Err(invalid(
+                            "sentence_too_long",
+                            format!(
+                                "{} tokens; the limit is {}",
+                                tokens.len(),
+                                limits.max_tokens
+                            ),
+                        ));
+                    }
+                    for (i, token) in tokens.iter().enumerate() {
+                        if token.trim().is_empty() {
+                            return Err(invalid("empty_token", format!("token {i} is empty")));
+                        }
+                        if let Some(c) = has_control(token, false) {
+                            return Err(invalid(
+                                "control_character",
+                                format!("token {i} contains the control character {c:?}"),
+                            ));
+                        }
+                    }
+                    if let Some(tags) = &input.tags {
+                        if tags.len() != tokens.len() {
+                            return Err(invalid(
+                                "tags_mismatch",
+                                format!(
+                                    "{} tags for {} tokens; give one tag per token",
+                                    tags.len(),
+                                    tokens.len()
+                                ),
+                            ));
+                        }
+                        if let Some((i, _)) = tags
+                            .iter()
+                            .enumerate()
+                            .find(|(_, t)| t.trim().is_empty() || has_control(t, false).is_some())
+                        {
+                            return Err(invalid(
+                                "bad_tag",
+                                format!("tag {i} is empty or has control characters"),
+                            ));
+                        }
+                    }
+                    work.push(Work {
+                        input: index,
+                        forms: tokens.clone(),
+                        tags: input.tags.clone(),
+                    });
+                }
+            }
+        }
+        Ok(work)
+    }
+
+    /// Runs a job: validation, admission (load shedding), the model snapshot, parsing on the
+    /// pool within `deadline`. `api` and `method` label the metrics.
+    pub async fn parse(
+        &self,
+        job: ParseJob,
+        deadline: Duration,
+        api: &str,
+        method: &str,
+    ) -> Result<ParseOutcome, ApiError> {
+        let result = self.parse_inner(job, deadline, api).await;
+        let code = match &result {
+            Ok(_) => "ok",
+            Err(e) => e.code,
+        };
+        metrics::REQUESTS
+            .with_label_values(&[api, method, code])
+            .inc();
+        result
+    }
+
+    async fn parse_inner(
+        &self,
+        job: ParseJob,
+        deadline: Duration,
+        api: &str,
+    ) -> Result<ParseOutcome, ApiError> {
+        let started = Instant::now();
+        let algorithm = decoder(job.decoder.as_deref())?;
+        let Ok(permit) = self.permits.clone().try_acquire_owned() else {
+            metrics::SHED.with_label_values(&[api]).inc();
+            return Err(ApiError::new(
+                Kind::ResourceExhausted,
+                "overloaded",
+                format!(
+                    "{} requests in flight; retry later",
+                    self.limits.max_in_flight
+                ),
+            ));
+        };
+        metrics::IN_FLIGHT.inc();
+        let _in_flight = scopeguard(|| metrics::IN_FLIGHT.dec());
+        let served: Arc<Served> = self.registry.snapshot(job.model.as_deref())?;
+        let tokenize_started = Instant::now();
+        let work = self.validate(&job)?;
+        let tokenize_seconds = tokenize_started.elapsed().as_secs_f64();
+        let inputs = job.inputs.len();
+        let confidence = job.confidence;
+        let (sender, receiver) = tokio::sync::oneshot::channel();
+        let snapshot = served.clone();
+        let cutoff = started + deadline;
+        self.pool.spawn(move || {
+            use rayon::prelude::*;
+            let parsed: Vec<Option<(usize, Vec<TokenOut>)>> = work
+                .into_par_iter()
+                .map(|w| {
+                    if Instant::now() > cutoff {
+                        return None; // the caller has given up; skip the work
+                    }
+                    Some((
+                        w.input,
+                        parse_sentence(&snapshot, &w, algorithm, confidence, tokenize_seconds),
+                    ))
+                })
+                .collect();
+            let _ = sender.send(parsed);
+            drop(permit);
+        });
+        let remaining = deadline.saturating_sub(started.elapsed());
+        let parsed = match tokio::time::timeout(remaining, receiver).await {
+            Ok(Ok(parsed)) => parsed,
+            Ok(Err(_)) => {
+                return Err(ApiError::new(
+                    Kind::Internal,
+                    "internal",
+                    "the parsing task ended unexpectedly",
+                ));
+            }
+            Err(_) => {
+                return Err(ApiError::new(
+                    Kind::DeadlineExceeded,
+                    "deadline_exceeded",
+                    format!(
+                        "not finished within the deadline of {:.3} s",
+                        deadline.as_secs_f64()
+                    ),
+                ));
+            }
+        };
+        let mut results: Vec<Vec<Vec<TokenOut>>> = vec![Vec::new(); inputs];
+        for entry in parsed {
+            let Some((input, sentence)) = entry else {
+                return Err(ApiError::new(
+                    Kind::DeadlineExceeded,
+                    "deadline_exceeded",
+                    "not finished within the deadline",
+                ));
+            };
+            results[input].push(sentence);
+        }
+        Ok(ParseOutcome {
+            model_name: served.name.clone(),
+            model_version: served.version.clone(),
+            results,
+        })
+    }
+}
+
+/// Parses one sentence and records its stage times.
+fn parse_sentence(
+    served: &Served,
+    work: &Work,
+    algorithm: Option<Algorithm>,
+    confidence: bool,
+    tokenize_seconds: f64,
+) -> Vec<TokenOut> {
+    let model = &served.model;
+    let decoder = algorithm.unwrap_or(model.default_decoder);
+    let decoder_name = decoder.name();
+    let bucket = metrics::length_bucket(work.forms.len());
+    let observe = |stage: &str, seconds: f64| {
+        metrics::STAGE_DURATION
+            .with_label_values(&[stage, decoder_name, bucket])
+            .observe(seconds)
+    };
+    let total = Instant::now();
+    observe("tokenize", tokenize_seconds);
+    let t = Instant::now();
+    let tags = match &work.tags {
+        Some(tags) => tags.clone(),
+        None => model.tagger.tag(&work.forms),
+    };
+    let morph = model.morph_tagger.as_ref().map(|m| m.tag(&work.forms));
+    observe("tag", t.elapsed().as_secs_f64());
+    let t = Instant::now();
+    let features = model.sentence_features(&work.forms, &tags, morph.as_deref().unwrap_or(&[]));
+    let scores = arcwright_parser::model::Model::arc_scores(
+        &features,
+        &model.arc_weights,
+        model.features.hash_bits,
+    );
+    observe("score", t.elapsed().as_secs_f64());
+    let t = Instant::now();
+    let decoded = arcwright_parser::decode::decode(
+        &scores,
+        decoder,
+        arcwright_parser::decode::RootConstraint::SingleRoot,
+    );
+    observe("decode", t.elapsed().as_secs_f64());
+    let marginals = confidence.then(|| {
+        arcwright_parser::marginals::marginals(
+            &scores,
+            decoder,
+            arcwright_parser::decode::RootConstraint::SingleRoot,
+        )
+    });
+    let tokens = (1..decoded.heads.len())
+        .map(|m| {
+            let head = decoded.heads[m];
+            let label = arcwright_parser::model::Model::best_label(
+                &features,
+                head,
+                m,
+                &model.label_weights,
+                model.label_bits,
+                model.labels.len(),
+            );
+            TokenOut {
+                id: m,
+                form: work.forms[m - 1].clone(),
+                tag: tags[m - 1].clone(),
+                head,
+                label: model.labels[label].clone(),
+                // Matrix-Tree marginals can lose their digits on extremely peaked scores (a known
+                // gap, see arcwright_parser::marginals::matrix_tree); a column that does not sum
+                // to 1 is not reported rather than reported wrong.
+                confidence: marginals.as_ref().and_then(|p| {
+                    let total: f64 = (0..decoded.heads.len()).map(|h| p.probability(h, m)).sum();
+                    ((total - 1.0).abs() <= 1e-6).then(|| p.probability(head, m))
+                }),
+            }
+        })
+        .collect();
+    observe("total", total.elapsed().as_secs_f64());
+    metrics::SENTENCES.with_label_values(&[decoder_name]).inc();
+    metrics::TOKENS
+        .with_label_values(&[decoder_name])
+        .inc_by(work.forms.len() as u64);
+    tokens
+}
+
+/// Runs `f` when dropped.
+fn scopeguard(f: impl FnOnce()) -> impl Drop {
+    struct Guard<F: FnOnce()>(Option<F>);
+    impl<F: FnOnce()> Drop for Guard<F> {
+        fn drop(&mut self) {
+            if let Some(f) = self.0.take() {
+                f();
+            }
+        }
+    }
+    Guard(Some(f))
+}
