@@ -2,9 +2,7 @@
 //!
 //! Exit codes: 0 success, 1 failure while working (I/O, internal), 2 bad input or bad usage.
 
-mod cli;
-mod commands;
-mod server;
+use arcwright::{cli, commands, server};
 
 use std::process::ExitCode;
 

@@ -9,8 +9,8 @@
 pub mod config;
 mod demo_model;
 pub mod errors;
-mod grpc;
-mod http;
+pub mod grpc;
+pub mod http;
 pub mod metrics;
 mod openapi;
 mod registry;
