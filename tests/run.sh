@@ -31,7 +31,9 @@ step() {
 install_python_packages() {
     # Pinned versions of the outside references.
     python3 -m pip install --quiet --disable-pip-version-check --root-user-action=ignore \
-        "networkx==3.6.1" "conllu==6.0.0" "moto[server]==5.2.1"
+        "networkx==3.6.1" "conllu==6.0.0" "moto[server]==5.2.1" \
+        "grpcio-tools==1.76.0" "grpcio-reflection==1.76.0" "grpcio-health-checking==1.76.0" \
+        "schemathesis==4.32.5"
 }
 
 fetch_turkish_treebank() {
@@ -75,6 +77,11 @@ step "train and evaluate on the Turkish treebank (floors, crossing arcs, reprodu
 step "model store on local disk and on an S3-compatible server (moto on 127.0.0.1)" \
     python3 tests/reference/check_store_s3.py "$BIN" "$CACHE/work/turkish/model-non-projective" \
         "$CACHE/work/turkish/split/test.conllu" "$CACHE/work/store"
+
+step "service end to end: Python gRPC stubs from proto/, HTTP, hot swap under load, SIGTERM" \
+    python3 tests/reference/check_service.py "$BIN" "$CACHE/work/turkish/model-non-projective" "$CACHE/work/service"
+step "schemathesis against /v1/openapi.json (no 5xx, replies match the schema)" \
+    python3 tests/reference/check_openapi.py "$BIN" "$CACHE/work/openapi"
 
 echo
 if ((failed > 0)); then

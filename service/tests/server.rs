@@ -23,62 +23,247 @@ fn config(store: &std::path::Path, cache: &std::path::Path, deadline: Duration) 
         poll: Duration::from_secs(5),
         cache_dir: cache.to_path_buf(),
         admin_token: Some(TOKEN.to_string()),
-        limits: Limits { max_tokens: 40, max_sentences: 4, max_body_bytes: 4096, deadline, max_in_flight: 8 },
+        limits: Limits {
+            max_tokens: 40,
+            max_sentences: 4,
+            max_body_bytes: 4096,
+            deadline,
+            max_in_flight: 8,
+        },
         threads: 2,
         grace: Duration::from_secs(5),
     }
 }
 
-async fn call(state: &Arc<AppState>, method: &str, uri: &str, body: Vec<u8>, auth: Option<&str>) -> (StatusCode, serde_json::Value) {
-    let mut request = Request::builder().method(method).uri(uri).header("content-type", "application/json");
+async fn call(
+    state: &Arc<AppState>,
+    method: &str,
+    uri: &str,
+    body: Vec<u8>,
+    auth: Option<&str>,
+) -> (StatusCode, serde_json::Value) {
+    let mut request = Request::builder()
+        .method(method)
+        .uri(uri)
+        .header("content-type", "application/json");
     if let Some(token) = auth {
         request = request.header("authorization", format!("Bearer {token}"));
     }
-    let response = server::http::router(state.clone()).oneshot(request.body(Body::from(body)).expect("request")).await.expect("response");
+    let response = server::http::router(state.clone())
+        .oneshot(request.body(Body::from(body)).expect("request"))
+        .await
+        .expect("response");
     let status = response.status();
-    let bytes = response.into_body().collect().await.expect("body").to_bytes();
-    (status, serde_json::from_slice(&bytes).unwrap_or(serde_json::Value::Null))
+    let bytes = response
+        .into_body()
+        .collect()
+        .await
+        .expect("body")
+        .to_bytes();
+    (
+        status,
+        serde_json::from_slice(&bytes).unwrap_or(serde_json::Value::Null),
+    )
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn bad_input_table_and_a_good_parse() {
     let tmp = tempfile::tempdir().expect("tempdir");
-    let state = server::build_state(&config(&tmp.path().join("store"), &tmp.path().join("cache"), Duration::from_secs(10)))
-        .await
-        .expect("state");
+    let state = server::build_state(&config(
+        &tmp.path().join("store"),
+        &tmp.path().join("cache"),
+        Duration::from_secs(10),
+    ))
+    .await
+    .expect("state");
     let long_sentence = serde_json::json!({"tokens": vec!["w"; 41]}).to_string();
-    let big_batch = serde_json::json!({"sentences": vec![serde_json::json!({"text": "a b"}); 5]}).to_string();
+    let big_batch =
+        serde_json::json!({"sentences": vec![serde_json::json!({"text": "a b"}); 5]}).to_string();
     let huge = format!("{{\"text\": \"{}\"}}", "a ".repeat(3000));
     // (method, path, body, auth, expected status, expected error code, message fragment)
     let cases: Vec<(&str, &str, Vec<u8>, Option<&str>, u16, &str, &str)> = vec![
-        ("POST", "/v1/parse", b"".to_vec(), None, 400, "empty_body", "body is empty"),
-        ("POST", "/v1/parse", b"{\"text\": ".to_vec(), None, 400, "malformed_json", "invalid JSON"),
-        ("POST", "/v1/parse", br#"{"text": "a", "tokens": ["a"]}"#.to_vec(), None, 400, "text_and_tokens", "not both"),
-        ("POST", "/v1/parse", br#"{}"#.to_vec(), None, 400, "no_input", "give text or tokens"),
-        ("POST", "/v1/parse", br#"{"tokens": ["a", " "]}"#.to_vec(), None, 400, "empty_token", "token 1 is empty"),
-        ("POST", "/v1/parse", br#"{"tokens": ["a", "b"], "tags": ["X"]}"#.to_vec(), None, 400, "tags_mismatch", "1 tags for 2 tokens"),
-        ("POST", "/v1/parse", br#"{"model": "nope", "text": "a b"}"#.to_vec(), None, 404, "unknown_model", "unknown model \"nope\""),
-        ("POST", "/v1/parse", br#"{"decoder": "cky", "text": "a b"}"#.to_vec(), None, 400, "unknown_decoder", "unknown decoder \"cky\""),
-        ("POST", "/v1/parse", long_sentence.into_bytes(), None, 400, "sentence_too_long", "41 tokens; the limit is 40"),
-        ("POST", "/v1/parse/batch", big_batch.into_bytes(), None, 400, "batch_too_large", "5 sentences in the batch; the limit is 4"),
-        ("POST", "/v1/parse", huge.into_bytes(), None, 413, "body_too_large", "the limit is 4096"),
-        ("POST", "/v1/parse", b"{\"text\": \"a \xff b\"}".to_vec(), None, 400, "invalid_utf8", "not valid UTF-8"),
-        ("POST", "/v1/parse", "{\"text\": \"a \\u0007 b\"}".as_bytes().to_vec(), None, 400, "control_character", "control character"),
-        ("POST", "/v1/parse", br#"{"text": "a", "extra": 1}"#.to_vec(), None, 400, "malformed_json", "unknown field `extra`"),
-        ("POST", "/v1/models/demo/activate", br#"{"version": "x"}"#.to_vec(), Some("wrong"), 401, "unauthenticated", "wrong admin token"),
-        ("POST", "/v1/models/demo/activate", br#"{"version": "x"}"#.to_vec(), None, 401, "unauthenticated", "admin token"),
-        ("POST", "/v1/models/demo/activate", br#"{"version": "nope"}"#.to_vec(), Some(TOKEN), 400, "invalid_name", "invalid version name"),
-        ("GET", "/v1/nothing", Vec::new(), None, 404, "no_route", "no such route"),
+        (
+            "POST",
+            "/v1/parse",
+            b"".to_vec(),
+            None,
+            400,
+            "empty_body",
+            "body is empty",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            b"{\"text\": ".to_vec(),
+            None,
+            400,
+            "malformed_json",
+            "invalid JSON",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            br#"{"text": "a", "tokens": ["a"]}"#.to_vec(),
+            None,
+            400,
+            "text_and_tokens",
+            "not both",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            br#"{}"#.to_vec(),
+            None,
+            400,
+            "no_input",
+            "give text or tokens",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            br#"{"tokens": ["a", " "]}"#.to_vec(),
+            None,
+            400,
+            "empty_token",
+            "token 1 is empty",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            br#"{"tokens": ["a", "b"], "tags": ["X"]}"#.to_vec(),
+            None,
+            400,
+            "tags_mismatch",
+            "1 tags for 2 tokens",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            br#"{"model": "nope", "text": "a b"}"#.to_vec(),
+            None,
+            404,
+            "unknown_model",
+            "unknown model \"nope\"",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            br#"{"decoder": "cky", "text": "a b"}"#.to_vec(),
+            None,
+            400,
+            "unknown_decoder",
+            "unknown decoder \"cky\"",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            long_sentence.into_bytes(),
+            None,
+            400,
+            "sentence_too_long",
+            "41 tokens; the limit is 40",
+        ),
+        (
+            "POST",
+            "/v1/parse/batch",
+            big_batch.into_bytes(),
+            None,
+            400,
+            "batch_too_large",
+            "5 sentences in the batch; the limit is 4",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            huge.into_bytes(),
+            None,
+            413,
+            "body_too_large",
+            "the limit is 4096",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            b"{\"text\": \"a \xff b\"}".to_vec(),
+            None,
+            400,
+            "invalid_utf8",
+            "not valid UTF-8",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            "{\"text\": \"a \\u0007 b\"}".as_bytes().to_vec(),
+            None,
+            400,
+            "control_character",
+            "control character",
+        ),
+        (
+            "POST",
+            "/v1/parse",
+            br#"{"text": "a", "extra": 1}"#.to_vec(),
+            None,
+            400,
+            "malformed_json",
+            "unknown field `extra`",
+        ),
+        (
+            "POST",
+            "/v1/models/demo/activate",
+            br#"{"version": "x"}"#.to_vec(),
+            Some("wrong"),
+            401,
+            "unauthenticated",
+            "wrong admin token",
+        ),
+        (
+            "POST",
+            "/v1/models/demo/activate",
+            br#"{"version": "x"}"#.to_vec(),
+            None,
+            401,
+            "unauthenticated",
+            "admin token",
+        ),
+        (
+            "POST",
+            "/v1/models/demo/activate",
+            br#"{"version": "nope"}"#.to_vec(),
+            Some(TOKEN),
+            400,
+            "invalid_name",
+            "invalid version name",
+        ),
+        (
+            "GET",
+            "/v1/nothing",
+            Vec::new(),
+            None,
+            404,
+            "no_route",
+            "no such route",
+        ),
     ];
     for (method, path, body, auth, status, code, fragment) in cases {
         let (got, json) = call(&state, method, path, body, auth).await;
         assert_eq!(got.as_u16(), status, "{path} {code}: {json}");
         assert_eq!(json["error"]["code"], code, "{json}");
         let message = json["error"]["message"].as_str().unwrap_or_default();
-        assert!(message.contains(fragment), "{code}: {message:?} lacks {fragment:?}");
+        assert!(
+            message.contains(fragment),
+            "{code}: {message:?} lacks {fragment:?}"
+        );
     }
     // Still serving after all of that; the reply names the model version.
-    let (status, json) = call(&state, "POST", "/v1/parse", br#"{"text": "The pilot signed the manifest.", "confidence": true}"#.to_vec(), None).await;
+    let (status, json) = call(
+        &state,
+        "POST",
+        "/v1/parse",
+        br#"{"text": "The pilot signed the manifest.", "confidence": true}"#.to_vec(),
+        None,
+    )
+    .await;
     assert_eq!(status, StatusCode::OK, "{json}");
     assert_eq!(json["model"]["name"], "demo");
     let tokens = json["sentences"][0]["tokens"].as_array().expect("tokens");
@@ -87,17 +272,34 @@ async fn bad_input_table_and_a_good_parse() {
     assert_eq!(roots, 1, "single root: {json}");
     let (status, batch) = call(&state, "POST", "/v1/parse/batch", br#"{"sentences": [{"text": "A tug moved."}, {"tokens": ["the", "clerk", "signed"], "tags": ["DET", "NOUN", "VERB"]}]}"#.to_vec(), None).await;
     assert_eq!(status, StatusCode::OK, "{batch}");
-    assert_eq!(batch["results"][1]["sentences"][0]["tokens"][1]["form"], "clerk", "input order kept");
-    assert_eq!(batch["results"][1]["sentences"][0]["tokens"][2]["tag"], "VERB", "given tags used");
+    assert_eq!(
+        batch["results"][1]["sentences"][0]["tokens"][1]["form"], "clerk",
+        "input order kept"
+    );
+    assert_eq!(
+        batch["results"][1]["sentences"][0]["tokens"][2]["tag"], "VERB",
+        "given tags used"
+    );
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn deadline_exceeded_is_a_clear_error() {
     let tmp = tempfile::tempdir().expect("tempdir");
-    let state = server::build_state(&config(&tmp.path().join("store"), &tmp.path().join("cache"), Duration::from_nanos(1)))
-        .await
-        .expect("state");
-    let (status, json) = call(&state, "POST", "/v1/parse", br#"{"text": "The pilot signed the manifest."}"#.to_vec(), None).await;
+    let state = server::build_state(&config(
+        &tmp.path().join("store"),
+        &tmp.path().join("cache"),
+        Duration::from_nanos(1),
+    ))
+    .await
+    .expect("state");
+    let (status, json) = call(
+        &state,
+        "POST",
+        "/v1/parse",
+        br#"{"text": "The pilot signed the manifest."}"#.to_vec(),
+        None,
+    )
+    .await;
     assert_eq!(status, StatusCode::GATEWAY_TIMEOUT, "{json}");
     assert_eq!(json["error"]["code"], "deadline_exceeded");
 }

@@ -20,7 +20,11 @@ pub async fn ensure_some_model(store: &Store) -> Result<(), String> {
     tracing::info!(store = %store.url(), "the store has no live model: building the demo model (invented harbour-crew sentences; a few seconds)");
     let started = std::time::Instant::now();
     // Unique per call: several stores may be bootstrapped by one process (tests).
-    let dir = std::env::temp_dir().join(format!("arcwright-demo-model-{}-{}", std::process::id(), super::new_request_id()));
+    let dir = std::env::temp_dir().join(format!(
+        "arcwright-demo-model-{}-{}",
+        std::process::id(),
+        super::new_request_id()
+    ));
     let build_dir = dir.clone();
     tokio::task::spawn_blocking(move || -> Result<(), String> {
         let examples: Vec<Example> = demo::corpus(1500, 20261201, None, 80).iter().filter_map(Example::from_sentence).collect();

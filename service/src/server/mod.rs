@@ -225,10 +225,15 @@ pub async fn run(config: config::Config) -> Result<(), String> {
     health_reporter
         .set_service_status("", tonic_health::ServingStatus::Serving)
         .await;
-    let reflection = tonic_reflection::server::Builder::configure()
-        .register_encoded_file_descriptor_set(grpc::proto::DESCRIPTOR)
-        .register_encoded_file_descriptor_set(tonic_health::pb::FILE_DESCRIPTOR_SET)
-        .build_v1()
+    // Server reflection, both protocol versions in use by clients (v1 and v1alpha).
+    let reflection_builder = || {
+        tonic_reflection::server::Builder::configure()
+            .register_encoded_file_descriptor_set(grpc::proto::DESCRIPTOR)
+            .register_encoded_file_descriptor_set(tonic_health::pb::FILE_DESCRIPTOR_SET)
+    };
+    let reflection = reflection_builder().build_v1().map_err(|e| e.to_string())?;
+    let reflection_alpha = reflection_builder()
+        .build_v1alpha()
         .map_err(|e| e.to_string())?;
     let max_message = config.limits.max_body_bytes;
     let parser_service = grpc::proto::parser_server::ParserServer::new(grpc::ParserService {
@@ -245,6 +250,7 @@ pub async fn run(config: config::Config) -> Result<(), String> {
         tonic::transport::Server::builder()
             .add_service(health_service)
             .add_service(reflection)
+            .add_service(reflection_alpha)
             .add_service(parser_service)
             .add_service(admin_service)
             .serve_with_incoming_shutdown(
