@@ -14,6 +14,17 @@ use tower::ServiceExt;
 
 const TOKEN: &str = "test-admin-token-0123456789";
 
+/// (method, path, body, bearer token, expected status, expected error code, message fragment)
+type Case<'a> = (
+    &'a str,
+    &'a str,
+    Vec<u8>,
+    Option<&'a str>,
+    u16,
+    &'a str,
+    &'a str,
+);
+
 fn config(store: &std::path::Path, cache: &std::path::Path, deadline: Duration) -> Config {
     Config {
         store: store.display().to_string(),
@@ -81,7 +92,7 @@ async fn bad_input_table_and_a_good_parse() {
         serde_json::json!({"sentences": vec![serde_json::json!({"text": "a b"}); 5]}).to_string();
     let huge = format!("{{\"text\": \"{}\"}}", "a ".repeat(3000));
     // (method, path, body, auth, expected status, expected error code, message fragment)
-    let cases: Vec<(&str, &str, Vec<u8>, Option<&str>, u16, &str, &str)> = vec![
+    let cases: Vec<Case> = vec![
         (
             "POST",
             "/v1/parse",
