@@ -17,8 +17,9 @@
 //! ```
 //!
 //! Names (models and aliases): 1–64 characters from `a–z 0–9 . _ -`, starting with a letter or
-//! digit, no `..`. Version ids are made by the store: `YYYYMMDDTHHMMSS.mmmZ-xxxxxxxx` (UTC time
-//! of publishing and 8 hex digits), so they sort by time and two concurrent publishes differ.
+//! digit, no `..`. Version ids are made by the store:
+//! `YYYYMMDDTHHMMSS.ffffffZ-xxxxxxxx` (UTC time of publishing to the microsecond, then 8 hex
+//! digits), so they sort by time and two concurrent publishes differ.
 
 mod layout;
 mod manifest;

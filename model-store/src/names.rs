@@ -40,17 +40,17 @@ pub fn validate_name(kind: &str, name: &str) -> Result<(), StoreError> {
     Ok(())
 }
 
-/// A version id as the store makes them (`YYYYMMDDTHHMMSS.mmmZ-xxxxxxxx`).
+/// A version id as the store makes them (`YYYYMMDDTHHMMSS.ffffffZ-xxxxxxxx`).
 pub fn validate_version(version: &str) -> Result<(), StoreError> {
     let bytes = version.as_bytes();
-    let shape_ok = bytes.len() == 29
+    let shape_ok = bytes.len() == 32
         && bytes[..8].iter().all(u8::is_ascii_digit)
         && bytes[8] == b'T'
         && bytes[9..15].iter().all(u8::is_ascii_digit)
         && bytes[15] == b'.'
-        && bytes[16..19].iter().all(u8::is_ascii_digit)
-        && &bytes[19..21] == b"Z-"
-        && bytes[21..]
+        && bytes[16..22].iter().all(u8::is_ascii_digit)
+        && &bytes[22..24] == b"Z-"
+        && bytes[24..]
             .iter()
             .all(|b| b.is_ascii_hexdigit() && !b.is_ascii_uppercase());
     if shape_ok {
@@ -59,7 +59,7 @@ pub fn validate_version(version: &str) -> Result<(), StoreError> {
         Err(StoreError::InvalidName {
             kind: "version".to_string(),
             name: printable(version),
-            reason: "versions look like 20261201T101500.000Z-1a2b3c4d".to_string(),
+            reason: "versions look like 20261201T101500.000000Z-1a2b3c4d".to_string(),
         })
     }
 }
@@ -100,7 +100,7 @@ mod tests {
         check("bad\u{7}name", Some("contains '\\u{7}'"));
         check("Upper", Some("contains 'U'"));
         check("-lead", Some("must start with a letter or a digit"));
-        assert!(validate_version("20261201T101500.000Z-1a2b3c4d").is_ok());
+        assert!(validate_version("20261201T101500.000000Z-1a2b3c4d").is_ok());
         assert!(validate_version("../../etc").is_err());
     }
 }

@@ -104,6 +104,7 @@ fn now() -> (String, String) {
         .unwrap_or_default();
     let seconds = elapsed.as_secs() as i64;
     let millis = elapsed.subsec_millis();
+    let micros = elapsed.subsec_micros();
     let (days, rest) = (seconds.div_euclid(86_400), seconds.rem_euclid(86_400));
     // Civil date from days since 1970-01-01 (H. Hinnant's algorithm).
     let z = days + 719_468;
@@ -118,7 +119,7 @@ fn now() -> (String, String) {
     let (h, m, s) = (rest / 3600, (rest % 3600) / 60, rest % 60);
     (
         format!("{year:04}-{month:02}-{day:02}T{h:02}:{m:02}:{s:02}.{millis:03}Z"),
-        format!("{year:04}{month:02}{day:02}T{h:02}{m:02}{s:02}.{millis:03}Z"),
+        format!("{year:04}{month:02}{day:02}T{h:02}{m:02}{s:02}.{micros:06}Z"),
     )
 }
 
