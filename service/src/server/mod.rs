@@ -212,7 +212,12 @@ pub async fn run(config: config::Config) -> Result<(), String> {
     let http_state = state.clone();
     let mut http_shutdown = shutdown_rx.clone();
     let http = tokio::spawn(async move {
-        axum::serve(http_listener, http::router(http_state))
+        use axum::serve::ListenerExt;
+        // TCP_NODELAY, as for gRPC below.
+        let listener = http_listener.tap_io(|tcp| {
+            let _ = tcp.set_nodelay(true);
+        });
+        axum::serve(listener, http::router(http_state))
             .with_graceful_shutdown(async move {
                 let _ = http_shutdown.wait_for(|stop| *stop).await;
             })
@@ -253,8 +258,9 @@ pub async fn run(config: config::Config) -> Result<(), String> {
             .add_service(reflection_alpha)
             .add_service(parser_service)
             .add_service(admin_service)
+            // TCP_NODELAY: without it small replies wait for the peer's delayed ACK (≈40 ms).
             .serve_with_incoming_shutdown(
-                tokio_stream::wrappers::TcpListenerStream::new(grpc_listener),
+                tonic::transport::server::TcpIncoming::from(grpc_listener).with_nodelay(Some(true)),
                 async move {
                     let _ = grpc_shutdown.wait_for(|stop| *stop).await;
                 },
