@@ -36,6 +36,15 @@ install_python_packages() {
         "schemathesis==4.32.5"
 }
 
+install_debian_packages() {
+    # Prometheus and promtool for the telemetry checks.
+    if command -v prometheus >/dev/null && command -v promtool >/dev/null; then
+        return 0
+    fi
+    export DEBIAN_FRONTEND=noninteractive
+    apt-get update -qq && apt-get install -y -qq --no-install-recommends prometheus >/dev/null
+}
+
 fetch_turkish_treebank() {
     # PyPI `turkish-treebanks` (Apache-2.0): two CoNLL-U files. Kept in the cache, never in git.
     local dir=$CACHE/turkish-treebanks
@@ -58,6 +67,7 @@ PY
 TREEBANK=$CACHE/turkish-treebanks/data
 
 step "install python reference packages" install_python_packages
+step "install Debian packages (prometheus)" install_debian_packages
 step "fetch the Turkish treebank" fetch_turkish_treebank
 step "cargo fmt --check" cargo fmt --all -- --check
 step "cargo clippy -D warnings" cargo clippy --workspace --all-targets --release --quiet -- -D warnings
@@ -82,6 +92,11 @@ step "service end to end: Python gRPC stubs from proto/, HTTP, hot swap under lo
     python3 tests/reference/check_service.py "$BIN" "$CACHE/work/turkish/model-non-projective" "$CACHE/work/service"
 step "schemathesis against /v1/openapi.json (no 5xx, replies match the schema)" \
     python3 tests/reference/check_openapi.py "$BIN" "$CACHE/work/openapi"
+
+step "promtool check rules (deploy/prometheus)" promtool check rules deploy/prometheus/rules/recording.yml deploy/prometheus/rules/alerts.yml
+step "promtool test rules (deploy/prometheus/tests)" bash -c "cd deploy/prometheus/tests && promtool test rules rules_test.yml"
+step "Prometheus scrapes arcwright serve: promtool check metrics, scaling exponents, per-bucket p99" \
+    python3 tests/reference/check_prometheus.py "$BIN" "$CACHE/work/prometheus"
 
 echo
 if ((failed > 0)); then

@@ -61,6 +61,17 @@ pub fn router(state: Arc<AppState>) -> Router {
         .route("/v1/models", get(models))
         .route("/v1/models/{name}/activate", post(activate))
         .route("/v1/openapi.json", get(openapi))
+        .route(
+            "/v1/scaling",
+            get(|| async {
+                Json(
+                    super::scaling::TRACKER
+                        .lock()
+                        .map(|t| t.report())
+                        .unwrap_or_default(),
+                )
+            }),
+        )
         .route("/healthz", get(|| async { "ok" }))
         .route("/readyz", get(ready))
         .route(

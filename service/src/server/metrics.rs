@@ -126,6 +126,33 @@ pub static SWAPS: LazyLock<IntCounterVec> = LazyLock::new(|| {
     )
 });
 
+pub static SCALING_EXPONENT: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(prometheus::GaugeVec::new(Opts::new("arcwright_scaling_exponent", "Slope of ln(duration) against ln(tokens) over recent sentences of at least 8 tokens"), &["stage", "decoder"]).expect("valid metric"))
+});
+
+pub static SCALING_SAMPLES: LazyLock<IntGaugeVec> = LazyLock::new(|| {
+    register(
+        IntGaugeVec::new(
+            Opts::new(
+                "arcwright_scaling_samples",
+                "Sentences in the scaling fit's window",
+            ),
+            &["stage", "decoder"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub static SCALING_R_SQUARED: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new("arcwright_scaling_r_squared", "R² of the scaling fit"),
+            &["stage", "decoder"],
+        )
+        .expect("valid metric"),
+    )
+});
+
 /// The power-of-two upper bound of a sentence length: 8, 16, … 512, +Inf.
 pub fn length_bucket(tokens: usize) -> &'static str {
     const BOUNDS: [(usize, &str); 7] = [
@@ -170,10 +197,28 @@ pub fn init() {
     LazyLock::force(&MODEL_INFO);
     LazyLock::force(&MODEL_LOAD_SECONDS);
     LazyLock::force(&SWAPS);
+    LazyLock::force(&SCALING_EXPONENT);
+    LazyLock::force(&SCALING_SAMPLES);
+    LazyLock::force(&SCALING_R_SQUARED);
 }
 
-/// The text exposition of every metric.
+/// The text exposition of every metric (scaling fits are computed at scrape time).
 pub fn render() -> String {
+    let fits = super::scaling::TRACKER
+        .lock()
+        .map(|t| t.fits())
+        .unwrap_or_default();
+    for (stage, decoder, fit) in fits {
+        SCALING_EXPONENT
+            .with_label_values(&[&stage, &decoder])
+            .set(fit.exponent);
+        SCALING_SAMPLES
+            .with_label_values(&[&stage, &decoder])
+            .set(fit.samples as i64);
+        SCALING_R_SQUARED
+            .with_label_values(&[&stage, &decoder])
+            .set(fit.r_squared);
+    }
     let mut buffer = Vec::new();
     let _ = TextEncoder::new().encode(&REGISTRY.gather(), &mut buffer);
     String::from_utf8(buffer).unwrap_or_default()

@@ -15,6 +15,7 @@ pub mod metrics;
 mod openapi;
 mod registry;
 mod request;
+pub mod scaling;
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};

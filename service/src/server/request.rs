@@ -340,10 +340,12 @@ fn parse_sentence(
     let decoder = algorithm.unwrap_or(model.default_decoder);
     let decoder_name = decoder.name();
     let bucket = metrics::length_bucket(work.forms.len());
+    let tokens = work.forms.len();
     let observe = |stage: &str, seconds: f64| {
         metrics::STAGE_DURATION
             .with_label_values(&[stage, decoder_name, bucket])
-            .observe(seconds)
+            .observe(seconds);
+        super::scaling::record(stage, decoder_name, tokens, bucket, seconds);
     };
     let total = Instant::now();
     observe("tokenize", tokenize_seconds);
