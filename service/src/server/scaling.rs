@@ -45,10 +45,10 @@ impl Series {
     fn push(&mut self, x: f64, y: f64) {
         self.points.push_back((x, y));
         self.add(x, y, 1.0);
-        if self.points.len() > WINDOW {
-            if let Some((ox, oy)) = self.points.pop_front() {
-                self.add(ox, oy, -1.0);
-            }
+        if self.points.len() > WINDOW
+            && let Some((ox, oy)) = self.points.pop_front()
+        {
+            self.add(ox, oy, -1.0);
         }
     }
 
