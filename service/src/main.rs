@@ -6,10 +6,12 @@ use arcwright::{cli, commands, server};
 
 use std::process::ExitCode;
 
-use clap::Parser as _;
-
 fn main() -> ExitCode {
-    let args = cli::Cli::parse();
+    let matches = <cli::Cli as clap::CommandFactory>::command().get_matches();
+    let args = match <cli::Cli as clap::FromArgMatches>::from_arg_matches(&matches) {
+        Ok(args) => args,
+        Err(e) => e.exit(),
+    };
     let outcome = match args.command {
         cli::Command::Decode(options) => commands::decode::run(&options),
         cli::Command::Conllu(options) => commands::conllu::run(&options),
@@ -18,7 +20,13 @@ fn main() -> ExitCode {
         cli::Command::Parse(options) => commands::parse::run(&options),
         cli::Command::DemoData(options) => commands::demo::run(&options),
         cli::Command::Store(options) => commands::store::run(&options),
-        cli::Command::Serve(options) => serve(&options),
+        cli::Command::Serve(mut options) => match matches.subcommand_matches("serve") {
+            Some(serve_matches) => match options.apply_config_file(serve_matches) {
+                Ok(()) => serve(&options),
+                Err(message) => Err(commands::Failure::bad_input(message)),
+            },
+            None => serve(&options),
+        },
     };
     match outcome {
         Ok(()) => ExitCode::SUCCESS,

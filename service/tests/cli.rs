@@ -119,3 +119,35 @@ fn conllu_check_reports_file_line_and_column() {
     );
     std::fs::remove_dir_all(&dir).ok();
 }
+
+#[test]
+fn serve_rejects_a_bad_settings_file_with_file_and_line() {
+    let dir = std::env::temp_dir().join(format!("arcwright-conf-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).expect("temp dir");
+    let path = dir.join("serve.conf");
+    std::fs::write(&path, "# settings\nhttp = 127.0.0.1:0\nmax-tokens = many\n").expect("write");
+    let file = path.to_str().expect("utf-8 path");
+    let (code, _, stderr) = run(
+        &[
+            "serve",
+            "--store",
+            dir.join("store").to_str().expect("path"),
+            "--config",
+            file,
+        ],
+        b"",
+    );
+    assert_eq!(code, 2, "{stderr}");
+    assert!(
+        stderr.contains(&format!("{file}:3: max-tokens = \"many\"")),
+        "{stderr}"
+    );
+    std::fs::write(&path, "colour = blue\n").expect("write");
+    let (code, _, stderr) = run(&["serve", "--config", file], b"");
+    assert_eq!(code, 2);
+    assert!(
+        stderr.contains(&format!("{file}:1: unknown setting \"colour\"")),
+        "{stderr}"
+    );
+    std::fs::remove_dir_all(&dir).ok();
+}

@@ -55,6 +55,10 @@ pub struct ServeArgs {
     /// Log JSON lines instead of human-readable text.
     #[arg(long, env = "ARCWRIGHT_LOG_JSON")]
     pub log_json: bool,
+    /// Optional settings file: `name = value` lines with the flag names above (without `--`),
+    /// `#` comments. A flag or an environment variable wins over the file.
+    #[arg(long, env = "ARCWRIGHT_CONFIG")]
+    pub config: Option<PathBuf>,
 }
 
 /// Validated settings.
@@ -93,6 +97,71 @@ fn seconds(name: &str, value: f64) -> Result<Duration, String> {
 }
 
 impl ServeArgs {
+    /// Fills in settings from `--config FILE` where the user gave neither a flag nor an
+    /// environment variable (`matches` says where each value came from).
+    pub fn apply_config_file(&mut self, matches: &clap::ArgMatches) -> Result<(), String> {
+        let Some(path) = self.config.clone() else {
+            return Ok(());
+        };
+        let text = std::fs::read_to_string(&path)
+            .map_err(|e| format!("--config {}: {e}", path.display()))?;
+        for (index, raw) in text.lines().enumerate() {
+            let line = raw.split('#').next().unwrap_or("").trim();
+            if line.is_empty() {
+                continue;
+            }
+            let at = || format!("{}:{}", path.display(), index + 1);
+            let (key, value) = line
+                .split_once('=')
+                .ok_or_else(|| format!("{}: expected `name = value`", at()))?;
+            let (key, value) = (key.trim(), value.trim().trim_matches('"'));
+            let id = key.replace('-', "_");
+            if matches.try_get_raw(&id).is_err() || id == "config" {
+                return Err(format!("{}: unknown setting {key:?}", at()));
+            }
+            if !matches!(
+                matches.value_source(&id),
+                None | Some(clap::parser::ValueSource::DefaultValue)
+            ) {
+                continue; // a flag or an environment variable wins
+            }
+            let bad = |e: String| format!("{}: {key} = {value:?}: {e}", at());
+            let number = |v: &str| v.parse::<usize>().map_err(|e| bad(e.to_string()));
+            let float = |v: &str| v.parse::<f64>().map_err(|e| bad(e.to_string()));
+            match id.as_str() {
+                "store" => self.store = value.to_string(),
+                "http" => {
+                    self.http = value
+                        .parse()
+                        .map_err(|e: std::net::AddrParseError| bad(e.to_string()))?
+                }
+                "grpc" => {
+                    self.grpc = value
+                        .parse()
+                        .map_err(|e: std::net::AddrParseError| bad(e.to_string()))?
+                }
+                "default_model" => self.default_model = Some(value.to_string()),
+                "poll_seconds" => self.poll_seconds = float(value)?,
+                "cache_dir" => self.cache_dir = PathBuf::from(value),
+                "admin_token_file" => self.admin_token_file = Some(PathBuf::from(value)),
+                "max_tokens" => self.max_tokens = number(value)?,
+                "max_sentences" => self.max_sentences = number(value)?,
+                "max_body_bytes" => self.max_body_bytes = number(value)?,
+                "deadline_seconds" => self.deadline_seconds = float(value)?,
+                "max_in_flight" => self.max_in_flight = number(value)?,
+                "threads" => self.threads = Some(number(value)?),
+                "grace_seconds" => self.grace_seconds = float(value)?,
+                "log_json" => {
+                    self.log_json = value
+                        .parse()
+                        .map_err(|e: std::str::ParseBoolError| bad(e.to_string()))?
+                }
+                _ => return Err(format!("{}: unknown setting {key:?}", at())),
+            }
+        }
+        Ok(())
+    }
+
     /// Checks the flags; reads the admin token (from its file, or `ARCWRIGHT_ADMIN_TOKEN`).
     pub fn validate(&self) -> Result<Config, String> {
         let positive = |name: &str, v: usize| {
