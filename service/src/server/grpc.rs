@@ -123,6 +123,16 @@ async fn parse_one(
     deadline: Duration,
     method: &str,
 ) -> Result<proto::ParseResponse, ApiError> {
+    let span = tracing::info_span!("grpc", method, request_id = %super::new_request_id());
+    tracing::Instrument::instrument(parse_one_inner(state, message, deadline, method), span).await
+}
+
+async fn parse_one_inner(
+    state: &AppState,
+    message: proto::ParseRequest,
+    deadline: Duration,
+    method: &str,
+) -> Result<proto::ParseResponse, ApiError> {
     let job = ParseJob {
         model: Some(message.model),
         decoder: decoder_name(message.decoder)?,

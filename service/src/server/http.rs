@@ -105,10 +105,9 @@ async fn request_id(mut request: Request<Body>, next: Next) -> Response {
         .unwrap_or_else(super::new_request_id);
     if let Ok(value) = HeaderValue::from_str(&id) {
         request.headers_mut().insert("x-request-id", value.clone());
+        // The request id (never the request text) on every log line of this request.
         let span = tracing::info_span!("http", request_id = %id, method = %request.method(), path = %request.uri().path());
-        let _enter = span.enter();
-        drop(_enter);
-        let mut response = next.run(request).await;
+        let mut response = tracing::Instrument::instrument(next.run(request), span).await;
         response.headers_mut().insert("x-request-id", value);
         return response;
     }

@@ -13,8 +13,8 @@ pub mod grpc;
 pub mod http;
 pub mod metrics;
 mod openapi;
-mod registry;
-mod request;
+pub mod registry;
+pub mod request;
 pub mod scaling;
 
 use std::sync::Arc;

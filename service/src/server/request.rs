@@ -271,7 +271,9 @@ impl Engine {
         let (sender, receiver) = tokio::sync::oneshot::channel();
         let snapshot = served.clone();
         let cutoff = started + deadline;
+        let span = tracing::Span::current();
         self.pool.spawn(move || {
+            let _request = span.enter(); // stage spans on the pool belong to the request's span
             use rayon::prelude::*;
             let parsed: Vec<Option<(usize, Vec<TokenOut>)>> = work
                 .into_par_iter()
@@ -281,7 +283,14 @@ impl Engine {
                     }
                     Some((
                         w.input,
-                        parse_sentence(&snapshot, &w, algorithm, confidence, tokenize_seconds),
+                        parse_sentence(
+                            &snapshot,
+                            &w,
+                            algorithm,
+                            confidence,
+                            tokenize_seconds,
+                            true,
+                        ),
                     ))
                 })
                 .collect();
@@ -329,19 +338,45 @@ impl Engine {
 }
 
 /// Parses one sentence and records its stage times.
+/// Parses `forms` exactly as a request would, with or without recording metrics: the
+/// benchmark of metrics overhead (`cargo bench -p arcwright --bench metrics_overhead`) compares
+/// the two.
+pub fn parse_for_benchmark(served: &Served, forms: &[String], record_metrics: bool) -> usize {
+    let work = Work {
+        input: 0,
+        forms: forms.to_vec(),
+        tags: None,
+    };
+    parse_sentence(
+        served,
+        &work,
+        Some(Algorithm::Projective),
+        false,
+        0.0,
+        record_metrics,
+    )
+    .len()
+}
+
 fn parse_sentence(
     served: &Served,
     work: &Work,
     algorithm: Option<Algorithm>,
     confidence: bool,
     tokenize_seconds: f64,
+    record_metrics: bool,
 ) -> Vec<TokenOut> {
     let model = &served.model;
     let decoder = algorithm.unwrap_or(model.default_decoder);
     let decoder_name = decoder.name();
     let bucket = metrics::length_bucket(work.forms.len());
     let tokens = work.forms.len();
+    let _span = tracing::debug_span!("sentence", tokens, decoder = decoder_name).entered();
     let observe = |stage: &str, seconds: f64| {
+        tracing::debug!(stage, seconds, "stage done");
+        if !record_metrics {
+            return;
+        }
         metrics::STAGE_DURATION
             .with_label_values(&[stage, decoder_name, bucket])
             .observe(seconds);
@@ -406,10 +441,12 @@ fn parse_sentence(
         })
         .collect();
     observe("total", total.elapsed().as_secs_f64());
-    metrics::SENTENCES.with_label_values(&[decoder_name]).inc();
-    metrics::TOKENS
-        .with_label_values(&[decoder_name])
-        .inc_by(work.forms.len() as u64);
+    if record_metrics {
+        metrics::SENTENCES.with_label_values(&[decoder_name]).inc();
+        metrics::TOKENS
+            .with_label_values(&[decoder_name])
+            .inc_by(work.forms.len() as u64);
+    }
     tokens
 }
 
