@@ -98,6 +98,9 @@ step "promtool test rules (deploy/prometheus/tests)" bash -c "cd deploy/promethe
 step "Prometheus scrapes arcwright serve: promtool check metrics, scaling exponents, per-bucket p99" \
     python3 tests/reference/check_prometheus.py "$BIN" "$CACHE/work/prometheus"
 
+step "load tests: smoke run of every scenario, report, accounting against server counters" \
+    python3 tests/reference/check_load.py "$BIN" "$ROOT/target/release/arcwright-load" "$CACHE/work/load"
+
 echo
 if ((failed > 0)); then
     printf 'failed step: %s\n' "${failed_steps[@]}"

@@ -248,7 +248,14 @@ impl Store {
             .map(|e| e.map(|e| e.path()))
             .collect::<Result<_, _>>()
             .map_err(io(dir))?;
-        entries.retain(|p| p.is_file());
+        // Hidden files (such as the fetch cache's `.verified` marker) are not payload.
+        entries.retain(|p| {
+            p.is_file()
+                && !p
+                    .file_name()
+                    .and_then(|n| n.to_str())
+                    .is_some_and(|n| n.starts_with('.'))
+        });
         entries.sort();
         if entries.is_empty() {
             return Err(StoreError::Invalid(format!(

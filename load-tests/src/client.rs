@@ -1,0 +1,226 @@
+//! The two front doors as clients: HTTP/JSON (reqwest) and gRPC (tonic client generated from
+//! `proto/`), with unary, batch and streaming calls.
+
+use std::time::Duration;
+
+use anyhow::anyhow;
+
+pub mod proto {
+    tonic::include_proto!("arcwright.v1");
+}
+
+use proto::parser_client::ParserClient;
+
+/// Which API and call to exercise.
+#[derive(
+    Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize, clap::ValueEnum,
+)]
+pub enum Api {
+    HttpParse,
+    HttpBatch,
+    GrpcParse,
+    GrpcBatch,
+    GrpcStream,
+}
+
+/// The outcome of one request.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Outcome {
+    /// Parsed; the model version that answered.
+    Ok(String),
+    /// Refused by load shedding (HTTP 429 / RESOURCE_EXHAUSTED).
+    Shed,
+    /// Anything else: a failed request.
+    Error(String),
+}
+
+#[derive(Debug, Clone)]
+pub struct Client {
+    api: Api,
+    http: reqwest::Client,
+    http_base: String,
+    grpc: Option<ParserClient<tonic::transport::Channel>>,
+    decoder: Option<String>,
+    confidence: bool,
+}
+
+impl Client {
+    pub async fn connect(
+        api: Api,
+        http_base: &str,
+        grpc_addr: &str,
+        decoder: Option<String>,
+        confidence: bool,
+    ) -> anyhow::Result<Client> {
+        let grpc = match api {
+            Api::GrpcParse | Api::GrpcBatch | Api::GrpcStream => {
+                let channel =
+                    tonic::transport::Endpoint::from_shared(format!("http://{grpc_addr}"))?
+                        .tcp_nodelay(true)
+                        .connect()
+                        .await?;
+                Some(ParserClient::new(channel))
+            }
+            _ => None,
+        };
+        let http = reqwest::Client::builder()
+            .tcp_nodelay(true)
+            .pool_max_idle_per_host(256)
+            .timeout(Duration::from_secs(60))
+            .build()?;
+        Ok(Client {
+            api,
+            http,
+            http_base: http_base.trim_end_matches('/').to_string(),
+            grpc,
+            decoder,
+            confidence,
+        })
+    }
+
+    fn grpc_decoder(&self) -> i32 {
+        match self.decoder.as_deref() {
+            Some("projective") => proto::Decoder::Projective as i32,
+            Some("non-projective") => proto::Decoder::NonProjective as i32,
+            _ => proto::Decoder::Unspecified as i32,
+        }
+    }
+
+    fn input(tokens: &[String]) -> proto::SentenceInput {
+        proto::SentenceInput {
+            input: Some(proto::sentence_input::Input::Tokens(proto::TokenList {
+                tokens: tokens.to_vec(),
+            })),
+            tags: vec![],
+        }
+    }
+
+    /// Sends one request carrying `sentences` (one for unary calls).
+    pub async fn send(&self, sentences: &[Vec<String>]) -> Outcome {
+        match self.send_inner(sentences).await {
+            Ok(outcome) => outcome,
+            Err(e) => Outcome::Error(e.to_string()),
+        }
+    }
+
+    async fn send_inner(&self, sentences: &[Vec<String>]) -> anyhow::Result<Outcome> {
+        match self.api {
+            Api::HttpParse | Api::HttpBatch => {
+                let (path, body) = if self.api == Api::HttpParse {
+                    (
+                        "/v1/parse",
+                        serde_json::json!({"tokens": sentences[0], "decoder": self.decoder, "confidence": self.confidence}),
+                    )
+                } else {
+                    let inputs: Vec<_> = sentences
+                        .iter()
+                        .map(|s| serde_json::json!({"tokens": s}))
+                        .collect();
+                    (
+                        "/v1/parse/batch",
+                        serde_json::json!({"sentences": inputs, "decoder": self.decoder, "confidence": self.confidence}),
+                    )
+                };
+                let response = self
+                    .http
+                    .post(format!("{}{path}", self.http_base))
+                    .json(&body)
+                    .send()
+                    .await?;
+                let status = response.status();
+                let value: serde_json::Value = response.json().await.unwrap_or_default();
+                if status.as_u16() == 429 {
+                    return Ok(Outcome::Shed);
+                }
+                if !status.is_success() {
+                    return Ok(Outcome::Error(format!("HTTP {status}: {value}")));
+                }
+                Ok(Outcome::Ok(
+                    value["model"]["version"]
+                        .as_str()
+                        .unwrap_or_default()
+                        .to_string(),
+                ))
+            }
+            Api::GrpcParse | Api::GrpcBatch | Api::GrpcStream => {
+                let mut client = self
+                    .grpc
+                    .clone()
+                    .ok_or_else(|| anyhow!("no gRPC channel"))?;
+                let result = match self.api {
+                    Api::GrpcParse => client
+                        .parse(proto::ParseRequest {
+                            model: String::new(),
+                            decoder: self.grpc_decoder(),
+                            confidence: self.confidence,
+                            input: Some(Client::input(&sentences[0])),
+                            id: String::new(),
+                        })
+                        .await
+                        .map(|r| r.into_inner().model.map(|m| m.version).unwrap_or_default()),
+                    Api::GrpcBatch => client
+                        .parse_batch(proto::ParseBatchRequest {
+                            model: String::new(),
+                            decoder: self.grpc_decoder(),
+                            confidence: self.confidence,
+                            sentences: sentences.iter().map(|s| Client::input(s)).collect(),
+                        })
+                        .await
+                        .map(|r| r.into_inner().model.map(|m| m.version).unwrap_or_default()),
+                    _ => {
+                        // One stream per request: each sentence is a message, all replies awaited.
+                        let messages: Vec<proto::ParseRequest> = sentences
+                            .iter()
+                            .enumerate()
+                            .map(|(i, s)| proto::ParseRequest {
+                                model: String::new(),
+                                decoder: self.grpc_decoder(),
+                                confidence: self.confidence,
+                                input: Some(Client::input(s)),
+                                id: i.to_string(),
+                            })
+                            .collect();
+                        let expected = messages.len();
+                        match client.parse_stream(tokio_stream::iter(messages)).await {
+                            Ok(response) => {
+                                let mut stream = response.into_inner();
+                                let mut version = String::new();
+                                let mut received = 0;
+                                loop {
+                                    match stream.message().await {
+                                        Ok(Some(reply)) => {
+                                            received += 1;
+                                            version =
+                                                reply.model.map(|m| m.version).unwrap_or_default();
+                                        }
+                                        Ok(None) => break,
+                                        Err(status) => return Ok(classify(status)),
+                                    }
+                                }
+                                if received != expected {
+                                    return Ok(Outcome::Error(format!(
+                                        "stream answered {received} of {expected}"
+                                    )));
+                                }
+                                Ok(version)
+                            }
+                            Err(status) => Err(status),
+                        }
+                    }
+                };
+                Ok(match result {
+                    Ok(version) => Outcome::Ok(version),
+                    Err(status) => classify(status),
+                })
+            }
+        }
+    }
+}
+
+fn classify(status: tonic::Status) -> Outcome {
+    if status.code() == tonic::Code::ResourceExhausted {
+        Outcome::Shed
+    } else {
+        Outcome::Error(format!("{:?}: {}", status.code(), status.message()))
+    }
+}

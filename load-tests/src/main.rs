@@ -1,0 +1,354 @@
+//! `arcwright-load`: open-loop load generator and performance report for `arcwright serve`.
+//!
+//! - `arcwright-load run …`: one open-loop run (one API, one rate) printed as JSON;
+//! - `arcwright-load suite …`: the scenarios — steady rate per API, latency by length, step-up
+//!   to the knee, hot swap under load, shedding at twice the knee, a bounded soak — written as
+//!   `results.json`, `REPORT.md` and SVG plots;
+//! - `arcwright-load report --input results.json --out DIR`: regenerate the Markdown and plots.
+//!
+//! Every loop is bounded in time and request count; targets default to loopback.
+
+mod client;
+mod openloop;
+mod report;
+mod workload;
+
+use std::path::PathBuf;
+use std::time::Duration;
+
+use clap::{Args, Parser, Subcommand};
+
+use client::{Api, Client};
+use openloop::Plan;
+
+#[derive(Debug, Parser)]
+#[command(
+    name = "arcwright-load",
+    about = "Open-loop load tests for the arcwright service"
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Debug, Args, Clone)]
+struct Target {
+    #[arg(long, default_value = "http://127.0.0.1:8080")]
+    http: String,
+    #[arg(long, default_value = "127.0.0.1:50051")]
+    grpc: String,
+}
+
+#[derive(Debug, Subcommand)]
+enum Command {
+    /// One open-loop run.
+    Run {
+        #[command(flatten)]
+        target: Target,
+        #[arg(long, value_enum, default_value = "grpc-parse")]
+        api: Api,
+        #[arg(long, default_value_t = 50.0)]
+        rate: f64,
+        #[arg(long, default_value_t = 5.0)]
+        seconds: f64,
+        #[arg(long, default_value_t = 100_000)]
+        max_requests: usize,
+        /// Words per demo sentence (default: the long-tailed mix).
+        #[arg(long)]
+        words: Option<usize>,
+        /// Sentences from a CoNLL-U file instead of demo sentences.
+        #[arg(long)]
+        conllu: Option<String>,
+        #[arg(long, default_value_t = 1)]
+        batch: usize,
+        #[arg(long)]
+        decoder: Option<String>,
+        #[arg(long)]
+        confidence: bool,
+    },
+    /// All scenarios; writes results.json, REPORT.md and plots to --out.
+    Suite {
+        #[command(flatten)]
+        target: Target,
+        #[arg(long)]
+        out: PathBuf,
+        /// Short durations (seconds per scenario) for smoke runs.
+        #[arg(long)]
+        quick: bool,
+        /// p99 budget for the knee, in milliseconds.
+        #[arg(long, default_value_t = 50.0)]
+        budget_ms: f64,
+        /// Admin token and versions to activate in turn during the swap scenario.
+        #[arg(long)]
+        admin_token: Option<String>,
+        #[arg(long)]
+        model: Option<String>,
+        #[arg(long, value_delimiter = ',')]
+        swap_versions: Vec<String>,
+        /// Server process id, for resident-memory readings.
+        #[arg(long)]
+        server_pid: Option<u32>,
+        /// Description of the machine for the report.
+        #[arg(
+            long,
+            default_value = "2 cores; generator and server on the same machine"
+        )]
+        machine: String,
+    },
+    /// Regenerate REPORT.md and the plots from a results.json.
+    Report {
+        #[arg(long)]
+        input: PathBuf,
+        #[arg(long)]
+        out: PathBuf,
+    },
+}
+
+fn rss_kib(pid: u32) -> Option<u64> {
+    let status = std::fs::read_to_string(format!("/proc/{pid}/status")).ok()?;
+    status
+        .lines()
+        .find(|l| l.starts_with("VmRSS:"))?
+        .split_whitespace()
+        .nth(1)?
+        .parse()
+        .ok()
+}
+
+/// Sum of `arcwright_requests_total` per api from the server's /metrics.
+async fn server_requests(http: &str) -> anyhow::Result<std::collections::BTreeMap<String, f64>> {
+    let text = reqwest::get(format!("{http}/metrics"))
+        .await?
+        .text()
+        .await?;
+    let mut out = std::collections::BTreeMap::new();
+    for line in text
+        .lines()
+        .filter(|l| l.starts_with("arcwright_requests_total{"))
+    {
+        let api = line
+            .split("api=\"")
+            .nth(1)
+            .and_then(|r| r.split('"').next())
+            .unwrap_or("?")
+            .to_string();
+        let value: f64 = line
+            .rsplit(' ')
+            .next()
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(0.0);
+        *out.entry(api).or_default() += value;
+    }
+    Ok(out)
+}
+
+#[tokio::main(flavor = "multi_thread", worker_threads = 2)]
+async fn main() -> anyhow::Result<()> {
+    match Cli::parse().command {
+        Command::Run {
+            target,
+            api,
+            rate,
+            seconds,
+            max_requests,
+            words,
+            conllu,
+            batch,
+            decoder,
+            confidence,
+        } => {
+            let sentences = match (conllu, words) {
+                (Some(path), _) => workload::conllu_file(&path)?,
+                (None, Some(w)) => workload::demo_fixed(w, 200, 1),
+                (None, None) => workload::demo_mix(500, 1, 120),
+            };
+            let client =
+                Client::connect(api, &target.http, &target.grpc, decoder, confidence).await?;
+            let plan = Plan {
+                rate,
+                duration: Duration::from_secs_f64(seconds),
+                max_requests,
+                max_outstanding: 512,
+                batch: batch.max(1),
+            };
+            let result = openloop::run(&client, &sentences, &plan).await;
+            println!("{}", serde_json::to_string_pretty(&result)?);
+        }
+        Command::Report { input, out } => {
+            let suite: report::Suite = serde_json::from_str(&std::fs::read_to_string(&input)?)?;
+            report::write_all(&suite, &out)?;
+            println!("wrote {}", out.join("REPORT.md").display());
+        }
+        Command::Suite {
+            target,
+            out,
+            quick,
+            budget_ms,
+            admin_token,
+            model,
+            swap_versions,
+            server_pid,
+            machine,
+        } => {
+            let seconds = if quick { 1.5 } else { 10.0 };
+            let plan = |rate: f64, secs: f64, batch: usize| Plan {
+                rate,
+                duration: Duration::from_secs_f64(secs),
+                max_requests: 200_000,
+                max_outstanding: 256,
+                batch,
+            };
+            let mut suite = report::Suite {
+                machine,
+                budget_ms,
+                ..Default::default()
+            };
+            let before = server_requests(&target.http).await.unwrap_or_default();
+            let mut generated = 0u64;
+            let medium = workload::demo_fixed(25, 200, 3);
+            if let Some(pid) = server_pid.and_then(rss_kib) {
+                suite.rss_kib.insert("start".into(), pid);
+            }
+            // Steady rate on every API.
+            for (api, name, rate, batch) in [
+                (Api::GrpcParse, "grpc-parse", 100.0, 1),
+                (Api::HttpParse, "http-parse", 100.0, 1),
+                (Api::GrpcBatch, "grpc-batch (32)", 10.0, 32),
+                (Api::HttpBatch, "http-batch (32)", 10.0, 32),
+                (Api::GrpcStream, "grpc-stream (8)", 20.0, 8),
+            ] {
+                let client = Client::connect(api, &target.http, &target.grpc, None, false).await?;
+                let r = openloop::run(&client, &medium, &plan(rate, seconds, batch)).await;
+                // The server counts each message of a stream as one request.
+                generated += if api == Api::GrpcStream {
+                    r.sent * batch as u64
+                } else {
+                    r.sent
+                };
+                suite.steady.insert(name.to_string(), r);
+            }
+            // Latency by length.
+            let grpc = Client::connect(
+                Api::GrpcParse,
+                &target.http,
+                &target.grpc,
+                Some("projective".into()),
+                false,
+            )
+            .await?;
+            let lengths: &[usize] = if quick {
+                &[10, 25, 50, 100]
+            } else {
+                &[10, 25, 50, 100, 200, 400]
+            };
+            for &words in lengths {
+                let r = openloop::run(
+                    &grpc,
+                    &workload::demo_fixed(words, 50, 9),
+                    &plan(if words > 100 { 5.0 } else { 20.0 }, seconds, 1),
+                )
+                .await;
+                generated += r.sent;
+                suite.lengths.insert(words, r);
+            }
+            suite.scaling = reqwest::get(format!("{}/v1/scaling", target.http))
+                .await?
+                .json()
+                .await
+                .unwrap_or_default();
+            // Step-up until the p99 budget breaks (or shedding / errors / client saturation).
+            let grpc =
+                Client::connect(Api::GrpcParse, &target.http, &target.grpc, None, false).await?;
+            let rates: Vec<f64> = if quick {
+                vec![50.0, 200.0, 800.0]
+            } else {
+                vec![100.0, 200.0, 400.0, 800.0, 1200.0, 1600.0, 2400.0, 3200.0]
+            };
+            for rate in rates {
+                let r = openloop::run(&grpc, &medium, &plan(rate, seconds, 1)).await;
+                generated += r.sent;
+                let within = r.latency.p99_ms <= budget_ms
+                    && r.errors == 0
+                    && r.shed == 0
+                    && r.client_overloaded == 0;
+                if within {
+                    suite.knee_rate = Some(rate);
+                }
+                suite.step_up.push(r);
+                if !within {
+                    break;
+                }
+            }
+            // Hot swap under load: activate each version in turn through the admin API.
+            if let (Some(token), false) = (&admin_token, swap_versions.is_empty()) {
+                let name = model.clone().unwrap_or_else(|| "demo".into());
+                let rate = suite.knee_rate.unwrap_or(50.0) / 2.0;
+                let swap_plan = plan(
+                    rate,
+                    seconds.max(1.0) * (swap_versions.len() as f64 + 1.0),
+                    1,
+                );
+                let http = reqwest::Client::new();
+                let (token, versions, base) =
+                    (token.clone(), swap_versions.clone(), target.http.clone());
+                let interval = swap_plan.duration / (versions.len() as u32 + 1);
+                let swapper = tokio::spawn(async move {
+                    let mut done = 0;
+                    for version in versions {
+                        tokio::time::sleep(interval).await;
+                        let response = http
+                            .post(format!("{base}/v1/models/{name}/activate"))
+                            .bearer_auth(&token)
+                            .json(&serde_json::json!({"version": version}))
+                            .send()
+                            .await;
+                        if response.map(|r| r.status().is_success()).unwrap_or(false) {
+                            done += 1;
+                        }
+                    }
+                    done
+                });
+                let r = openloop::run(&grpc, &medium, &swap_plan).await;
+                generated += r.sent;
+                suite.swaps_done = swapper.await.unwrap_or(0);
+                suite.swap = Some(r);
+            }
+            // Shedding: twice the knee.
+            let knee = suite.knee_rate.unwrap_or(100.0);
+            let r = openloop::run(
+                &grpc,
+                &workload::demo_fixed(100, 50, 4),
+                &plan(knee * 2.0, seconds, 1),
+            )
+            .await;
+            generated += r.sent;
+            suite.shed = Some(r);
+            if let Some(kib) = server_pid.and_then(rss_kib) {
+                suite.rss_kib.insert("after shedding".into(), kib);
+            }
+            // Bounded soak.
+            let r = openloop::run(
+                &grpc,
+                &workload::demo_mix(500, 11, 120),
+                &plan(knee / 2.0, seconds * 2.0, 1),
+            )
+            .await;
+            generated += r.sent;
+            suite.soak = Some(r);
+            if let Some(kib) = server_pid.and_then(rss_kib) {
+                suite.rss_kib.insert("after soak".into(), kib);
+            }
+            // The generator's accounting against the server's request counters.
+            let after = server_requests(&target.http).await.unwrap_or_default();
+            let server_total: f64 = after.values().sum::<f64>() - before.values().sum::<f64>();
+            suite.accounting = serde_json::json!({
+                "generator_sent": generated,
+                "server_counted": server_total,
+                "match": (server_total - generated as f64).abs() < 0.5,
+            });
+            report::write_all(&suite, &out)?;
+            println!("{}", serde_json::to_string(&suite.accounting)?);
+        }
+    }
+    Ok(())
+}

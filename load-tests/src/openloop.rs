@@ -1,0 +1,155 @@
+//! The open-loop runner: requests leave on a fixed schedule at the target rate whatever the
+//! server does, and each latency is measured from the request's *scheduled* send time, so
+//! queueing (in the client or the server) shows up in the numbers instead of slowing the load
+//! down (the coordinated-omission trap of closed-loop generators). Bounded by duration, request
+//! count and the number of requests outstanding at once.
+
+use std::collections::BTreeMap;
+use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant};
+
+use hdrhistogram::Histogram;
+use serde::Serialize;
+
+use crate::client::{Client, Outcome};
+use crate::workload::{Sentence, bucket};
+
+#[derive(Debug, Clone)]
+pub struct Plan {
+    pub rate: f64,
+    pub duration: Duration,
+    pub max_requests: usize,
+    pub max_outstanding: usize,
+    /// Sentences per request (1 for unary calls).
+    pub batch: usize,
+}
+
+/// Latency summary in milliseconds.
+#[derive(Debug, Clone, Serialize, serde::Deserialize, Default)]
+pub struct Latency {
+    pub count: u64,
+    pub p50_ms: f64,
+    pub p90_ms: f64,
+    pub p99_ms: f64,
+    pub max_ms: f64,
+}
+
+impl Latency {
+    fn from(h: &Histogram<u64>) -> Latency {
+        let ms = |v: u64| v as f64 / 1000.0;
+        Latency {
+            count: h.len(),
+            p50_ms: ms(h.value_at_quantile(0.5)),
+            p90_ms: ms(h.value_at_quantile(0.9)),
+            p99_ms: ms(h.value_at_quantile(0.99)),
+            max_ms: ms(h.max()),
+        }
+    }
+}
+
+/// What one run measured.
+#[derive(Debug, Clone, Serialize, serde::Deserialize, Default)]
+pub struct RunResult {
+    pub offered_rate: f64,
+    pub seconds: f64,
+    pub sent: u64,
+    pub ok: u64,
+    pub shed: u64,
+    pub errors: u64,
+    /// Scheduled sends skipped because `max_outstanding` requests were already open.
+    pub client_overloaded: u64,
+    pub sentences_per_second: f64,
+    pub latency: Latency,
+    /// Latency of accepted (non-shed) requests by power-of-two length bucket of the longest
+    /// sentence in the request.
+    pub by_bucket: BTreeMap<usize, Latency>,
+    pub versions: BTreeMap<String, u64>,
+    pub first_errors: Vec<String>,
+}
+
+struct Tally {
+    all: Histogram<u64>,
+    buckets: BTreeMap<usize, Histogram<u64>>,
+    result: RunResult,
+}
+
+fn histogram() -> Histogram<u64> {
+    Histogram::new_with_bounds(1, 600_000_000, 3).expect("valid histogram bounds")
+}
+
+/// Runs the plan against `client`, cycling through `sentences`.
+pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunResult {
+    let tally = Arc::new(Mutex::new(Tally {
+        all: histogram(),
+        buckets: BTreeMap::new(),
+        result: RunResult::default(),
+    }));
+    let outstanding = Arc::new(tokio::sync::Semaphore::new(plan.max_outstanding));
+    let interval = Duration::from_secs_f64(1.0 / plan.rate.max(0.001));
+    let started = Instant::now();
+    let mut tasks = Vec::new();
+    let mut index = 0usize;
+    let mut sent = 0u64;
+    let mut skipped = 0u64;
+    let mut next = started;
+    while next.duration_since(started) < plan.duration && (sent as usize) < plan.max_requests {
+        tokio::time::sleep_until(next.into()).await;
+        let scheduled = next;
+        next += interval;
+        let Ok(permit) = outstanding.clone().try_acquire_owned() else {
+            skipped += 1;
+            continue;
+        };
+        let request: Vec<Sentence> = (0..plan.batch)
+            .map(|i| sentences[(index + i) % sentences.len()].clone())
+            .collect();
+        index += plan.batch;
+        sent += 1;
+        let (client, tally) = (client.clone(), tally.clone());
+        tasks.push(tokio::spawn(async move {
+            let outcome = client.send(&request).await;
+            let micros = scheduled.elapsed().as_micros().clamp(1, 600_000_000) as u64;
+            let longest = request.iter().map(Vec::len).max().unwrap_or(1);
+            let mut t = tally.lock().expect("tally lock");
+            match outcome {
+                Outcome::Ok(version) => {
+                    t.result.ok += 1;
+                    *t.result.versions.entry(version).or_default() += 1;
+                    let _ = t.all.record(micros);
+                    let _ = t
+                        .buckets
+                        .entry(bucket(longest))
+                        .or_insert_with(histogram)
+                        .record(micros);
+                    t.result.sentences_per_second += request.len() as f64;
+                }
+                Outcome::Shed => t.result.shed += 1,
+                Outcome::Error(message) => {
+                    t.result.errors += 1;
+                    if t.result.first_errors.len() < 5 {
+                        t.result.first_errors.push(message);
+                    }
+                }
+            }
+            drop(permit);
+        }));
+    }
+    for task in tasks {
+        let _ = task.await;
+    }
+    let seconds = started.elapsed().as_secs_f64();
+    let t = tally.lock().expect("tally lock");
+    let mut result = t.result.clone();
+    result.offered_rate = plan.rate;
+    result.seconds = seconds;
+    result.sent = sent;
+    result.client_overloaded = skipped;
+    result.sentences_per_second /= seconds.max(1e-9);
+    result.latency = Latency::from(&t.all);
+    result.by_bucket = t
+        .buckets
+        .iter()
+        .map(|(b, h)| (*b, Latency::from(h)))
+        .collect();
+    result
+}

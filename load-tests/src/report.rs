@@ -1,0 +1,334 @@
+//! The report: JSON results → Markdown summary and SVG plots (plotters).
+
+use std::collections::BTreeMap;
+use std::fmt::Write as _;
+use std::path::Path;
+
+use plotters::prelude::*;
+use serde::{Deserialize, Serialize};
+
+use crate::openloop::RunResult;
+
+/// Everything a suite measured.
+#[derive(Debug, Clone, Serialize, Deserialize, Default)]
+pub struct Suite {
+    pub machine: String,
+    pub steady: BTreeMap<String, RunResult>,
+    pub lengths: BTreeMap<usize, RunResult>,
+    pub step_up: Vec<RunResult>,
+    pub knee_rate: Option<f64>,
+    pub budget_ms: f64,
+    pub swap: Option<RunResult>,
+    pub swaps_done: usize,
+    pub shed: Option<RunResult>,
+    pub soak: Option<RunResult>,
+    pub rss_kib: BTreeMap<String, u64>,
+    pub scaling: serde_json::Value,
+    pub accounting: serde_json::Value,
+}
+
+fn fmt(x: f64) -> String {
+    if x >= 100.0 {
+        format!("{x:.0}")
+    } else if x >= 10.0 {
+        format!("{x:.1}")
+    } else {
+        format!("{x:.2}")
+    }
+}
+
+pub fn markdown(s: &Suite) -> String {
+    let mut out = String::new();
+    let _ = writeln!(out, "# arcwright load-test report\n\n{}\n", s.machine);
+    let _ = writeln!(
+        out,
+        "Open-loop load (latency from each request's scheduled send time). Generator and server share the machine.\n"
+    );
+    let _ = writeln!(
+        out,
+        "## Steady rate by API\n\n| API | offered req/s | sent | ok | shed | errors | sentences/s | p50 ms | p99 ms |\n| --- | --- | --- | --- | --- | --- | --- | --- | --- |"
+    );
+    for (api, r) in &s.steady {
+        let _ = writeln!(
+            out,
+            "| {api} | {} | {} | {} | {} | {} | {} | {} | {} |",
+            fmt(r.offered_rate),
+            r.sent,
+            r.ok,
+            r.shed,
+            r.errors,
+            fmt(r.sentences_per_second),
+            fmt(r.latency.p50_ms),
+            fmt(r.latency.p99_ms)
+        );
+    }
+    let _ = writeln!(
+        out,
+        "\n## Latency by sentence length (gRPC Parse, low rate)\n\n| words | ok | p50 ms | p99 ms |\n| --- | --- | --- | --- |"
+    );
+    for (words, r) in &s.lengths {
+        let _ = writeln!(
+            out,
+            "| {words} | {} | {} | {} |",
+            r.ok,
+            fmt(r.latency.p50_ms),
+            fmt(r.latency.p99_ms)
+        );
+    }
+    if let Some(fits) = s.scaling.get("fits").and_then(|f| f.as_array()) {
+        let _ = writeln!(
+            out,
+            "\n## Server-side scaling exponents (`/v1/scaling`)\n\n| stage | decoder | exponent | R² | samples |\n| --- | --- | --- | --- | --- |"
+        );
+        for f in fits {
+            let _ = writeln!(
+                out,
+                "| {} | {} | {:.2} | {:.3} | {} |",
+                f["stage"].as_str().unwrap_or(""),
+                f["decoder"].as_str().unwrap_or(""),
+                f["exponent"].as_f64().unwrap_or(f64::NAN),
+                f["r_squared"].as_f64().unwrap_or(f64::NAN),
+                f["samples"]
+            );
+        }
+    }
+    let _ = writeln!(
+        out,
+        "\n## Step-up (gRPC Parse, 25 words)\n\n| offered req/s | achieved req/s | shed | errors | skipped (client) | p50 ms | p99 ms |\n| --- | --- | --- | --- | --- | --- | --- |"
+    );
+    for r in &s.step_up {
+        let _ = writeln!(
+            out,
+            "| {} | {} | {} | {} | {} | {} | {} |",
+            fmt(r.offered_rate),
+            fmt(r.ok as f64 / r.seconds.max(1e-9)),
+            r.shed,
+            r.errors,
+            r.client_overloaded,
+            fmt(r.latency.p50_ms),
+            fmt(r.latency.p99_ms)
+        );
+    }
+    let _ = writeln!(
+        out,
+        "\nKnee (highest rate with p99 ≤ {} ms, nothing shed, no errors): {}",
+        s.budget_ms,
+        s.knee_rate
+            .map_or("not reached".to_string(), |k| format!("{} req/s", fmt(k)))
+    );
+    if let Some(r) = &s.swap {
+        let _ = writeln!(
+            out,
+            "\n## Hot swap under load\n\n{} promotes during {:.0} s at {} req/s: {} ok, **{} errors**, versions seen: {}",
+            s.swaps_done,
+            r.seconds,
+            fmt(r.offered_rate),
+            r.ok,
+            r.errors,
+            r.versions.len()
+        );
+    }
+    if let Some(r) = &s.shed {
+        let _ = writeln!(
+            out,
+            "\n## Shedding\n\nOffered {} req/s: {} ok, {} shed (429 / RESOURCE_EXHAUSTED), {} errors; admitted p50 {} ms, p99 {} ms.",
+            fmt(r.offered_rate),
+            r.ok,
+            r.shed,
+            r.errors,
+            fmt(r.latency.p50_ms),
+            fmt(r.latency.p99_ms)
+        );
+    }
+    if let Some(r) = &s.soak {
+        let _ = writeln!(
+            out,
+            "\n## Soak\n\n{:.0} s at {} req/s: {} ok, {} errors, p99 {} ms.",
+            r.seconds,
+            fmt(r.offered_rate),
+            r.ok,
+            r.errors,
+            fmt(r.latency.p99_ms)
+        );
+    }
+    if !s.rss_kib.is_empty() {
+        let _ = writeln!(
+            out,
+            "\nServer resident memory (KiB): {}",
+            s.rss_kib
+                .iter()
+                .map(|(k, v)| format!("{k} {v}"))
+                .collect::<Vec<_>>()
+                .join(", ")
+        );
+    }
+    let _ = writeln!(
+        out,
+        "\n## Accounting\n\n```\n{}\n```\n\nPlots: `latency-by-length.svg`, `step-up.svg`.",
+        serde_json::to_string_pretty(&s.accounting).unwrap_or_default()
+    );
+    out
+}
+
+/// Latency against length on log-log axes (client p50 per fixed length, and server-side
+/// per-stage p50 per bucket from `/v1/scaling`), with the fitted slopes in the legend.
+pub fn plot_lengths(s: &Suite, path: &Path) -> anyhow::Result<()> {
+    let root = SVGBackend::new(path, (800, 500)).into_drawing_area();
+    root.fill(&WHITE)?;
+    let mut series: BTreeMap<String, Vec<(f64, f64)>> = BTreeMap::new();
+    for (words, r) in &s.lengths {
+        if r.latency.count > 0 {
+            series
+                .entry("client total (p50)".into())
+                .or_default()
+                .push((*words as f64, r.latency.p50_ms));
+        }
+    }
+    let slopes: BTreeMap<String, f64> = s
+        .scaling
+        .get("fits")
+        .and_then(|f| f.as_array())
+        .map(|fits| {
+            fits.iter()
+                .map(|f| {
+                    (
+                        format!(
+                            "{} {}",
+                            f["stage"].as_str().unwrap_or(""),
+                            f["decoder"].as_str().unwrap_or("")
+                        ),
+                        f["exponent"].as_f64().unwrap_or(f64::NAN),
+                    )
+                })
+                .collect()
+        })
+        .unwrap_or_default();
+    if let Some(buckets) = s.scaling.get("buckets").and_then(|b| b.as_array()) {
+        for b in buckets {
+            let stage = b["stage"].as_str().unwrap_or("");
+            if !matches!(stage, "score" | "decode" | "total") {
+                continue;
+            }
+            let Ok(bound) = b["length_bucket"].as_str().unwrap_or("").parse::<f64>() else {
+                continue;
+            };
+            let key = format!("{stage} {}", b["decoder"].as_str().unwrap_or(""));
+            series
+                .entry(key)
+                .or_default()
+                .push((bound * 0.75, b["p50_seconds"].as_f64().unwrap_or(0.0) * 1e3));
+        }
+    }
+    let points: Vec<(f64, f64)> = series
+        .values()
+        .flatten()
+        .copied()
+        .filter(|p| p.0 > 0.0 && p.1 > 0.0)
+        .collect();
+    if points.is_empty() {
+        return Ok(());
+    }
+    let (xmin, xmax) = points
+        .iter()
+        .fold((f64::MAX, f64::MIN), |a, p| (a.0.min(p.0), a.1.max(p.0)));
+    let (ymin, ymax) = points
+        .iter()
+        .fold((f64::MAX, f64::MIN), |a, p| (a.0.min(p.1), a.1.max(p.1)));
+    let mut chart = ChartBuilder::on(&root)
+        .caption(
+            "latency against sentence length (log-log)",
+            ("sans-serif", 20),
+        )
+        .margin(15)
+        .x_label_area_size(40)
+        .y_label_area_size(60)
+        .build_cartesian_2d(
+            (xmin * 0.8..xmax * 1.25).log_scale(),
+            (ymin * 0.5..ymax * 2.0).log_scale(),
+        )?;
+    chart
+        .configure_mesh()
+        .x_desc("tokens")
+        .y_desc("milliseconds")
+        .draw()?;
+    for (i, (name, mut pts)) in series.into_iter().enumerate() {
+        pts.sort_by(|a, b| a.0.total_cmp(&b.0));
+        let color = Palette99::pick(i).to_rgba();
+        let label = match slopes.get(&name) {
+            Some(k) => format!("{name} (slope {k:.2})"),
+            None => name.clone(),
+        };
+        chart
+            .draw_series(LineSeries::new(pts.clone(), color.stroke_width(2)))?
+            .label(label)
+            .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], color));
+        chart.draw_series(pts.iter().map(|p| Circle::new(*p, 3, color.filled())))?;
+    }
+    chart
+        .configure_series_labels()
+        .background_style(WHITE.mix(0.8))
+        .border_style(BLACK)
+        .draw()?;
+    root.present()?;
+    Ok(())
+}
+
+/// Throughput and p99 against offered load (step-up).
+pub fn plot_step_up(s: &Suite, path: &Path) -> anyhow::Result<()> {
+    if s.step_up.is_empty() {
+        return Ok(());
+    }
+    let root = SVGBackend::new(path, (800, 500)).into_drawing_area();
+    root.fill(&WHITE)?;
+    let xmax = s.step_up.iter().map(|r| r.offered_rate).fold(1.0, f64::max) * 1.1;
+    let ymax = s
+        .step_up
+        .iter()
+        .map(|r| r.latency.p99_ms.max(r.ok as f64 / r.seconds.max(1e-9)))
+        .fold(1.0, f64::max)
+        * 1.1;
+    let mut chart = ChartBuilder::on(&root)
+        .caption(
+            "throughput (req/s) and p99 (ms) against offered load",
+            ("sans-serif", 20),
+        )
+        .margin(15)
+        .x_label_area_size(40)
+        .y_label_area_size(60)
+        .build_cartesian_2d(0.0..xmax, 0.0..ymax)?;
+    chart.configure_mesh().x_desc("offered requests/s").draw()?;
+    let throughput: Vec<(f64, f64)> = s
+        .step_up
+        .iter()
+        .map(|r| (r.offered_rate, r.ok as f64 / r.seconds.max(1e-9)))
+        .collect();
+    let p99: Vec<(f64, f64)> = s
+        .step_up
+        .iter()
+        .map(|r| (r.offered_rate, r.latency.p99_ms))
+        .collect();
+    chart
+        .draw_series(LineSeries::new(throughput, BLUE.stroke_width(2)))?
+        .label("achieved req/s")
+        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], BLUE));
+    chart
+        .draw_series(LineSeries::new(p99, RED.stroke_width(2)))?
+        .label("p99 ms")
+        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], RED));
+    chart
+        .configure_series_labels()
+        .background_style(WHITE.mix(0.8))
+        .border_style(BLACK)
+        .draw()?;
+    root.present()?;
+    Ok(())
+}
+
+pub fn write_all(s: &Suite, dir: &Path) -> anyhow::Result<()> {
+    std::fs::create_dir_all(dir)?;
+    std::fs::write(dir.join("results.json"), serde_json::to_string_pretty(s)?)?;
+    std::fs::write(dir.join("REPORT.md"), markdown(s))?;
+    plot_lengths(s, &dir.join("latency-by-length.svg"))?;
+    plot_step_up(s, &dir.join("step-up.svg"))?;
+    Ok(())
+}
