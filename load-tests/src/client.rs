@@ -42,9 +42,15 @@ pub struct Client {
     grpc: Option<ParserClient<tonic::transport::Channel>>,
     decoder: Option<String>,
     confidence: bool,
+    model: Option<String>,
 }
 
 impl Client {
+    /// Sends requests to a named model instead of the server's default.
+    pub fn set_model(&mut self, model: Option<String>) {
+        self.model = model;
+    }
+
     pub async fn connect(
         api: Api,
         http_base: &str,
@@ -72,6 +78,7 @@ impl Client {
             api,
             http,
             http_base: http_base.trim_end_matches('/').to_string(),
+            model: None,
             grpc,
             decoder,
             confidence,
@@ -109,7 +116,7 @@ impl Client {
                 let (path, body) = if self.api == Api::HttpParse {
                     (
                         "/v1/parse",
-                        serde_json::json!({"tokens": sentences[0], "decoder": self.decoder, "confidence": self.confidence}),
+                        serde_json::json!({"model": self.model, "tokens": sentences[0], "decoder": self.decoder, "confidence": self.confidence}),
                     )
                 } else {
                     let inputs: Vec<_> = sentences
@@ -118,7 +125,7 @@ impl Client {
                         .collect();
                     (
                         "/v1/parse/batch",
-                        serde_json::json!({"sentences": inputs, "decoder": self.decoder, "confidence": self.confidence}),
+                        serde_json::json!({"model": self.model, "sentences": inputs, "decoder": self.decoder, "confidence": self.confidence}),
                     )
                 };
                 let response = self
@@ -150,7 +157,7 @@ impl Client {
                 let result = match self.api {
                     Api::GrpcParse => client
                         .parse(proto::ParseRequest {
-                            model: String::new(),
+                            model: self.model.clone().unwrap_or_default(),
                             decoder: self.grpc_decoder(),
                             confidence: self.confidence,
                             input: Some(Client::input(&sentences[0])),
@@ -160,7 +167,7 @@ impl Client {
                         .map(|r| r.into_inner().model.map(|m| m.version).unwrap_or_default()),
                     Api::GrpcBatch => client
                         .parse_batch(proto::ParseBatchRequest {
-                            model: String::new(),
+                            model: self.model.clone().unwrap_or_default(),
                             decoder: self.grpc_decoder(),
                             confidence: self.confidence,
                             sentences: sentences.iter().map(|s| Client::input(s)).collect(),
@@ -173,7 +180,7 @@ impl Client {
                             .iter()
                             .enumerate()
                             .map(|(i, s)| proto::ParseRequest {
-                                model: String::new(),
+                                model: self.model.clone().unwrap_or_default(),
                                 decoder: self.grpc_decoder(),
                                 confidence: self.confidence,
                                 input: Some(Client::input(s)),

@@ -88,6 +88,12 @@ enum Command {
         /// Server process id, for resident-memory readings.
         #[arg(long)]
         server_pid: Option<u32>,
+        /// Also run the steady scenario on the sentences of this CoNLL-U file (e.g. the Turkish
+        /// test split, with a Turkish model served as --conllu-model).
+        #[arg(long)]
+        conllu: Option<String>,
+        #[arg(long)]
+        conllu_model: Option<String>,
         /// Description of the machine for the report.
         #[arg(
             long,
@@ -188,6 +194,8 @@ async fn main() -> anyhow::Result<()> {
             model,
             swap_versions,
             server_pid,
+            conllu,
+            conllu_model,
             machine,
         } => {
             let seconds = if quick { 1.5 } else { 10.0 };
@@ -227,58 +235,121 @@ async fn main() -> anyhow::Result<()> {
                 };
                 suite.steady.insert(name.to_string(), r);
             }
-            // Latency by length.
-            let grpc = Client::connect(
-                Api::GrpcParse,
-                &target.http,
-                &target.grpc,
-                Some("projective".into()),
-                false,
-            )
-            .await?;
+            // Latency by length, projective decoding; then the same lengths non-projective with
+            // confidences (marginals) on.
             let lengths: &[usize] = if quick {
                 &[10, 25, 50, 100]
             } else {
                 &[10, 25, 50, 100, 200, 400]
             };
-            for &words in lengths {
-                let r = openloop::run(
-                    &grpc,
-                    &workload::demo_fixed(words, 50, 9),
-                    &plan(if words > 100 { 5.0 } else { 20.0 }, seconds, 1),
+            for (decoder, confidence) in [("projective", false), ("non-projective", true)] {
+                let grpc = Client::connect(
+                    Api::GrpcParse,
+                    &target.http,
+                    &target.grpc,
+                    Some(decoder.into()),
+                    confidence,
                 )
-                .await;
+                .await?;
+                for &words in lengths {
+                    let rate = if words > 100 { 5.0 } else { 20.0 };
+                    let r = openloop::run(
+                        &grpc,
+                        &workload::demo_fixed(words, 50, 9),
+                        &plan(rate, seconds, 1),
+                    )
+                    .await;
+                    generated += r.sent;
+                    if confidence {
+                        suite.lengths_non_projective_confidence.insert(words, r);
+                    } else {
+                        suite.lengths.insert(words, r);
+                    }
+                }
+            }
+            if let Some(path) = &conllu {
+                let sentences = workload::conllu_file(path)?;
+                let mut client =
+                    Client::connect(Api::GrpcParse, &target.http, &target.grpc, None, false)
+                        .await?;
+                client.set_model(conllu_model.clone());
+                let r = openloop::run(&client, &sentences, &plan(50.0, seconds, 1)).await;
                 generated += r.sent;
-                suite.lengths.insert(words, r);
+                suite.steady.insert(
+                    format!("grpc-parse, {}", path.rsplit('/').next().unwrap_or(path)),
+                    r,
+                );
             }
             suite.scaling = reqwest::get(format!("{}/v1/scaling", target.http))
                 .await?
                 .json()
                 .await
                 .unwrap_or_default();
-            // Step-up until the p99 budget breaks (or shedding / errors / client saturation).
-            let grpc =
-                Client::connect(Api::GrpcParse, &target.http, &target.grpc, None, false).await?;
-            let rates: Vec<f64> = if quick {
-                vec![50.0, 200.0, 800.0]
-            } else {
-                vec![100.0, 200.0, 400.0, 800.0, 1200.0, 1600.0, 2400.0, 3200.0]
-            };
-            for rate in rates {
-                let r = openloop::run(&grpc, &medium, &plan(rate, seconds, 1)).await;
-                generated += r.sent;
-                let within = r.latency.p99_ms <= budget_ms
-                    && r.errors == 0
-                    && r.shed == 0
-                    && r.client_overloaded == 0;
-                if within {
-                    suite.knee_rate = Some(rate);
-                }
-                suite.step_up.push(r);
-                if !within {
-                    break;
+            // Step-up until the p99 budget breaks (or shedding / errors / client saturation), for
+            // unary gRPC (the reference knee), unary HTTP and gRPC batches of 32.
+            let full_rates = vec![100.0, 200.0, 400.0, 800.0, 1200.0, 1600.0, 2400.0, 3200.0];
+            for (api, name, batch, rates) in [
+                (
+                    Api::GrpcParse,
+                    "grpc-parse",
+                    1,
+                    if quick {
+                        vec![50.0, 200.0, 800.0]
+                    } else {
+                        full_rates.clone()
+                    },
+                ),
+                (
+                    Api::HttpParse,
+                    "http-parse",
+                    1,
+                    if quick {
+                        vec![50.0, 200.0]
+                    } else {
+                        full_rates.clone()
+                    },
+                ),
+                (
+                    Api::GrpcBatch,
+                    "grpc-batch (32)",
+                    32,
+                    if quick {
+                        vec![5.0, 20.0]
+                    } else {
+                        vec![10.0, 20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 160.0]
+                    },
+                ),
+            ] {
+                let client = Client::connect(api, &target.http, &target.grpc, None, false).await?;
+                for rate in rates {
+                    let r = openloop::run(&client, &medium, &plan(rate, seconds, batch)).await;
+                    generated += r.sent;
+                    let within = r.latency.p99_ms <= budget_ms * batch as f64
+                        && r.errors == 0
+                        && r.shed == 0
+                        && r.client_overloaded == 0;
+                    if within {
+                        suite.knees.insert(name.to_string(), rate * batch as f64);
+                        if api == Api::GrpcParse {
+                            suite.knee_rate = Some(rate);
+                        }
+                    }
+                    if api == Api::GrpcParse {
+                        suite.step_up.push(r);
+                    } else {
+                        suite
+                            .step_up_other
+                            .entry(name.to_string())
+                            .or_default()
+                            .push(r);
+                    }
+                    if !within {
+                        break;
+                    }
                 }
             }
+            let grpc =
+                Client::connect(Api::GrpcParse, &target.http, &target.grpc, None, false).await?;
             // Hot swap under load: activate each version in turn through the admin API.
             if let (Some(token), false) = (&admin_token, swap_versions.is_empty()) {
                 let name = model.clone().unwrap_or_else(|| "demo".into());

@@ -15,7 +15,14 @@ pub struct Suite {
     pub machine: String,
     pub steady: BTreeMap<String, RunResult>,
     pub lengths: BTreeMap<usize, RunResult>,
+    #[serde(default)]
+    pub lengths_non_projective_confidence: BTreeMap<usize, RunResult>,
     pub step_up: Vec<RunResult>,
+    #[serde(default)]
+    pub step_up_other: BTreeMap<String, Vec<RunResult>>,
+    /// Highest sentences/s within the p99 budget, per API.
+    #[serde(default)]
+    pub knees: BTreeMap<String, f64>,
     pub knee_rate: Option<f64>,
     pub budget_ms: f64,
     pub swap: Option<RunResult>,
@@ -64,15 +71,18 @@ pub fn markdown(s: &Suite) -> String {
     }
     let _ = writeln!(
         out,
-        "\n## Latency by sentence length (gRPC Parse, low rate)\n\n| words | ok | p50 ms | p99 ms |\n| --- | --- | --- | --- |"
+        "\n## Latency by sentence length (gRPC Parse, low rate)\n\n| words | projective p50 ms | p99 ms | non-projective + confidences p50 ms | p99 ms |\n| --- | --- | --- | --- | --- |"
     );
     for (words, r) in &s.lengths {
+        let other = s.lengths_non_projective_confidence.get(words);
+        let cell = |v: Option<f64>| v.map_or("-".to_string(), fmt);
         let _ = writeln!(
             out,
-            "| {words} | {} | {} | {} |",
-            r.ok,
+            "| {words} | {} | {} | {} | {} |",
             fmt(r.latency.p50_ms),
-            fmt(r.latency.p99_ms)
+            fmt(r.latency.p99_ms),
+            cell(other.map(|o| o.latency.p50_ms)),
+            cell(other.map(|o| o.latency.p99_ms))
         );
     }
     if let Some(fits) = s.scaling.get("fits").and_then(|f| f.as_array()) {
@@ -116,6 +126,36 @@ pub fn markdown(s: &Suite) -> String {
         s.knee_rate
             .map_or("not reached".to_string(), |k| format!("{} req/s", fmt(k)))
     );
+    for (name, runs) in &s.step_up_other {
+        let _ = writeln!(
+            out,
+            "\n### Step-up, {name}\n\n| offered req/s | sentences/s | shed | errors | p50 ms | p99 ms |\n| --- | --- | --- | --- | --- | --- |"
+        );
+        for r in runs {
+            let _ = writeln!(
+                out,
+                "| {} | {} | {} | {} | {} | {} |",
+                fmt(r.offered_rate),
+                fmt(r.sentences_per_second),
+                r.shed,
+                r.errors,
+                fmt(r.latency.p50_ms),
+                fmt(r.latency.p99_ms)
+            );
+        }
+    }
+    if !s.knees.is_empty() {
+        let knees: Vec<String> = s
+            .knees
+            .iter()
+            .map(|(k, v)| format!("{k} {}", fmt(*v)))
+            .collect();
+        let _ = writeln!(
+            out,
+            "\nSentences/s at the knee (25-word sentences; a batch's budget scales with its size): {}",
+            knees.join(", ")
+        );
+    }
     if let Some(r) = &s.swap {
         let _ = writeln!(
             out,
