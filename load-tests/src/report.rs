@@ -71,18 +71,19 @@ pub fn markdown(s: &Suite) -> String {
     }
     let _ = writeln!(
         out,
-        "\n## Latency by sentence length (gRPC Parse, low rate)\n\n| words | projective p50 ms | p99 ms | non-projective + confidences p50 ms | p99 ms |\n| --- | --- | --- | --- | --- |"
+        "\n## Latency by sentence length (gRPC Parse, low rate)\n\n| words | projective p50 ms | p99 ms | non-projective + confidences p50 ms | p99 ms | errors |\n| --- | --- | --- | --- | --- | --- |"
     );
     for (words, r) in &s.lengths {
         let other = s.lengths_non_projective_confidence.get(words);
         let cell = |v: Option<f64>| v.map_or("-".to_string(), fmt);
         let _ = writeln!(
             out,
-            "| {words} | {} | {} | {} | {} |",
+            "| {words} | {} | {} | {} | {} | {} |",
             fmt(r.latency.p50_ms),
             fmt(r.latency.p99_ms),
             cell(other.map(|o| o.latency.p50_ms)),
-            cell(other.map(|o| o.latency.p99_ms))
+            cell(other.map(|o| o.latency.p99_ms)),
+            r.errors + other.map_or(0, |o| o.errors)
         );
     }
     if let Some(fits) = s.scaling.get("fits").and_then(|f| f.as_array()) {
