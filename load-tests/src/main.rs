@@ -94,6 +94,10 @@ enum Command {
         conllu: Option<String>,
         #[arg(long)]
         conllu_model: Option<String>,
+        /// Model directory of the served default model: measures in-process parse throughput on
+        /// the same sentences (all cores), for the batch-throughput ratio.
+        #[arg(long)]
+        model_dir: Option<PathBuf>,
         /// Description of the machine for the report.
         #[arg(
             long,
@@ -196,6 +200,7 @@ async fn main() -> anyhow::Result<()> {
             server_pid,
             conllu,
             conllu_model,
+            model_dir,
             machine,
         } => {
             let seconds = if quick { 1.5 } else { 10.0 };
@@ -383,6 +388,36 @@ async fn main() -> anyhow::Result<()> {
                 generated += r.sent;
                 suite.swaps_done = swapper.await.unwrap_or(0);
                 suite.swap = Some(r);
+            }
+            // Half the knee: p99 should stay within 3× p50.
+            if let Some(knee) = suite.knee_rate {
+                let r = openloop::run(&grpc, &medium, &plan(knee / 2.0, seconds, 1)).await;
+                generated += r.sent;
+                suite.half_knee = Some(r);
+            }
+            // In-process throughput of the same sentences on all cores, for the batch ratio.
+            if let Some(dir) = &model_dir {
+                let model = arcwright_parser::model::Model::load(dir)?;
+                let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
+                let per_thread = if quick { 100 } else { 1000 };
+                let started = std::time::Instant::now();
+                std::thread::scope(|scope| {
+                    for t in 0..threads {
+                        let (model, medium) = (&model, &medium);
+                        scope.spawn(move || {
+                            for i in 0..per_thread {
+                                std::hint::black_box(model.parse(
+                                    &medium[(i + t) % medium.len()],
+                                    None,
+                                    None,
+                                    None,
+                                ));
+                            }
+                        });
+                    }
+                });
+                suite.in_process_sentences_per_second =
+                    Some((threads * per_thread) as f64 / started.elapsed().as_secs_f64());
             }
             // Shedding: twice the knee.
             let knee = suite.knee_rate.unwrap_or(100.0);

@@ -24,6 +24,12 @@ pub struct Suite {
     #[serde(default)]
     pub knees: BTreeMap<String, f64>,
     pub knee_rate: Option<f64>,
+    /// Steady run at half the gRPC Parse knee.
+    #[serde(default)]
+    pub half_knee: Option<RunResult>,
+    /// Parsing the same sentences in-process on all cores.
+    #[serde(default)]
+    pub in_process_sentences_per_second: Option<f64>,
     pub budget_ms: f64,
     pub swap: Option<RunResult>,
     pub swaps_done: usize,
@@ -155,6 +161,57 @@ pub fn markdown(s: &Suite) -> String {
             out,
             "\nSentences/s at the knee (25-word sentences; a batch's budget scales with its size): {}",
             knees.join(", ")
+        );
+    }
+    let _ = writeln!(out, "\n## Targets (issue 7)\n");
+    match (&s.half_knee, s.knee_rate) {
+        (Some(r), Some(knee)) => {
+            let ratio = r.latency.p99_ms / r.latency.p50_ms.max(1e-9);
+            let _ = writeln!(
+                out,
+                "- p99 at half the knee ({} req/s) ≤ 3 × p50: p50 {} ms, p99 {} ms, ratio {:.2} — **{}**",
+                fmt(knee / 2.0),
+                fmt(r.latency.p50_ms),
+                fmt(r.latency.p99_ms),
+                ratio,
+                if ratio <= 3.0 { "met" } else { "not met" }
+            );
+        }
+        _ => {
+            let _ = writeln!(out, "- p99 at half the knee: no knee found");
+        }
+    }
+    match (
+        s.knees.get("grpc-batch (32)"),
+        s.in_process_sentences_per_second,
+    ) {
+        (Some(batch), Some(local)) => {
+            let _ = writeln!(
+                out,
+                "- gRPC batch throughput ≥ 80% of in-process: {} vs {} sentences/s in-process on all cores = {:.0}% — **{}** (the generator shares the cores; the batch figure is the highest step within budget, not a saturation point)",
+                fmt(*batch),
+                fmt(local),
+                100.0 * batch / local,
+                if *batch >= 0.8 * local {
+                    "met"
+                } else {
+                    "not met"
+                }
+            );
+        }
+        _ => {
+            let _ = writeln!(
+                out,
+                "- gRPC batch vs in-process: not measured (give --model-dir)"
+            );
+        }
+    }
+    if let Some(r) = &s.swap {
+        let _ = writeln!(
+            out,
+            "- 0 errors across swaps: **{}** ({} errors)",
+            if r.errors == 0 { "met" } else { "not met" },
+            r.errors
         );
     }
     if let Some(r) = &s.swap {

@@ -38,7 +38,7 @@ def main():
         out = full or os.path.join(work, "report")
         args = [load, "suite", "--http", base, "--grpc", f"127.0.0.1:{grpc_port}", "--out", out,
                 "--admin-token", cs.TOKEN, "--model", "demo", "--swap-versions", f"{v1},{v2},{v0}",
-                "--server-pid", str(proc.pid)]
+                "--server-pid", str(proc.pid), "--model-dir", fetched]
         if not full:
             args.append("--quick")
         started = time.time()
@@ -59,6 +59,8 @@ def main():
                 failures.append("errors during soak or shedding")
             if not results["accounting"]["match"]:
                 failures.append(f"accounting: {results['accounting']}")
+            if results.get("in_process_sentences_per_second") is None:
+                failures.append("in-process throughput not measured")
             for f in ("REPORT.md", "latency-by-length.svg", "step-up.svg"):
                 if not os.path.getsize(os.path.join(out, f)):
                     failures.append(f"{f} is empty")
