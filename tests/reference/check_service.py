@@ -261,6 +261,10 @@ def main():
                         with lock:
                             refused[0] += 1
                         time.sleep(0.05)
+                    elif isinstance(e.reason, (ConnectionResetError, BrokenPipeError)):
+                        # Reset while connecting or sending: never read by the server (see below).
+                        with lock:
+                            reset[0] += 1
                     else:
                         accepted_failures.append(repr(e))
                 except ConnectionRefusedError:
