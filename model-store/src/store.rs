@@ -123,6 +123,12 @@ fn now() -> (String, String) {
     )
 }
 
+/// Maps an I/O error on `path` to `StoreError::Io`.
+fn io(path: &FsPath) -> impl FnOnce(std::io::Error) -> StoreError {
+    let path = path.display().to_string();
+    move |source| StoreError::Io { path, source }
+}
+
 fn sha256_hex(bytes: &[u8]) -> String {
     hex::encode(Sha256::digest(bytes))
 }
@@ -239,10 +245,6 @@ impl Store {
         scores: Option<serde_json::Value>,
     ) -> Result<Manifest, StoreError> {
         validate_name("model", name)?;
-        let io = |path: &FsPath| {
-            let path = path.display().to_string();
-            move |source| StoreError::Io { path, source }
-        };
         let mut entries: Vec<PathBuf> = std::fs::read_dir(dir)
             .map_err(io(dir))?
             .map(|e| e.map(|e| e.path()))
@@ -573,10 +575,6 @@ impl Store {
         let staging = cache
             .join(name)
             .join(format!(".{version}.partial-{}", std::process::id()));
-        let io = |path: &FsPath| {
-            let path = path.display().to_string();
-            move |source| StoreError::Io { path, source }
-        };
         let _ = std::fs::remove_dir_all(&staging);
         std::fs::create_dir_all(&staging).map_err(io(&staging))?;
         for entry in &manifest.files {

@@ -4,7 +4,7 @@
 //! modifier word/tag unigrams and bigrams, the tags in between, and the tags around head and
 //! modifier; each is emitted twice, plain and conjoined with direction and binned distance. On top:
 //! suffix and word-shape backoff for rare and unknown words, and morphology from FEATS (case,
-//! possession, person/number), which carries much of the attachment signal in languages such as
+//! possession), which carries much of the attachment signal in languages such as
 //! Turkish. Features are hashed (Weinberger et al. 2009) into a table of `2^hash_bits` weights.
 //!
 //! Hot path: per-token parts (word, tag, suffix, shape, morphology, neighbours' tags) are hashed
@@ -19,7 +19,7 @@ use crate::text;
 pub struct FeatureConfig {
     /// log2 of the parser's weight-table size.
     pub hash_bits: u32,
-    /// Use FEATS morphology (case, possession, person/number) in arc features.
+    /// Use FEATS morphology (Case and Possessive) in arc features.
     pub morphology: bool,
 }
 
@@ -61,12 +61,7 @@ pub(crate) fn scramble(a: u64, b: u64) -> u64 {
 
 /// FNV-1a of a string (stable across runs and machines, unlike the std hasher).
 pub(crate) fn hash_str(text: &str) -> u64 {
-    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
-    for byte in text.bytes() {
-        h ^= u64::from(byte);
-        h = h.wrapping_mul(0x0000_0100_0000_01b3);
-    }
-    h
+    fingerprint(text.as_bytes())
 }
 
 #[derive(Debug, Clone, Copy, Default)]

@@ -58,18 +58,6 @@ pub fn feature_value<'a>(feats: &'a str, name: &str) -> &'a str {
         .unwrap_or("")
 }
 
-/// The morphology summary the parser uses: Case, Possessive and PersonNumber from FEATS.
-pub fn morphology_summary(feats: &str) -> String {
-    let mut parts = Vec::new();
-    for name in ["Case", "Possessive", "PersonNumber"] {
-        let value = feature_value(feats, name);
-        if !value.is_empty() {
-            parts.push(format!("{name}={value}"));
-        }
-    }
-    parts.join("|")
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -89,10 +77,6 @@ mod tests {
                 "PersonNumber"
             ),
             "V3sg"
-        );
-        assert_eq!(
-            morphology_summary("Case=Dat|Proper=False|Possessive=P3sg"),
-            "Case=Dat|Possessive=P3sg"
         );
     }
 }
