@@ -133,6 +133,34 @@ fn sha256_hex(bytes: &[u8]) -> String {
     hex::encode(Sha256::digest(bytes))
 }
 
+/// The S3-compatible bucket `bucket`: credentials, region and endpoint from the standard
+/// `AWS_*` variables; plain HTTP only for endpoints on loopback.
+pub(crate) fn s3_bucket(
+    url: &str,
+    bucket: &str,
+) -> Result<object_store::aws::AmazonS3, StoreError> {
+    let mut builder = AmazonS3Builder::from_env()
+        .with_bucket_name(bucket)
+        .with_conditional_put(S3ConditionalPut::ETagMatch)
+        .with_retry(RetryConfig {
+            max_retries: 3,
+            retry_timeout: Duration::from_secs(15),
+            ..RetryConfig::default()
+        });
+    // The one place environment variables are read for the store: the standard
+    // AWS_ENDPOINT_URL (the crate itself reads AWS_ENDPOINT and the credentials).
+    if let Ok(endpoint) = std::env::var("AWS_ENDPOINT_URL") {
+        let loopback = ["http://127.", "http://localhost", "http://[::1]"]
+            .iter()
+            .any(|p| endpoint.starts_with(p));
+        builder = builder.with_endpoint(endpoint).with_allow_http(loopback);
+    }
+    builder.build().map_err(|e| StoreError::BadUrl {
+        url: url.to_string(),
+        reason: e.to_string(),
+    })
+}
+
 impl Store {
     /// Opens a store from a URL: a path (`./model-store`, `file:///abs/path`) or
     /// `s3://bucket/prefix` (credentials, region and endpoint from the standard `AWS_*`
@@ -147,23 +175,7 @@ impl Store {
             if bucket.is_empty() {
                 return Err(bad("no bucket name after s3://"));
             }
-            let mut builder = AmazonS3Builder::from_env()
-                .with_bucket_name(bucket)
-                .with_conditional_put(S3ConditionalPut::ETagMatch)
-                .with_retry(RetryConfig {
-                    max_retries: 3,
-                    retry_timeout: Duration::from_secs(15),
-                    ..RetryConfig::default()
-                });
-            // The one place environment variables are read for the store: the standard
-            // AWS_ENDPOINT_URL (the crate itself reads AWS_ENDPOINT and the credentials).
-            if let Ok(endpoint) = std::env::var("AWS_ENDPOINT_URL") {
-                let loopback = ["http://127.", "http://localhost", "http://[::1]"]
-                    .iter()
-                    .any(|p| endpoint.starts_with(p));
-                builder = builder.with_endpoint(endpoint).with_allow_http(loopback);
-            }
-            let objects = builder.build().map_err(|e| bad(&e.to_string()))?;
+            let objects = s3_bucket(url, bucket)?;
             return Ok(Store {
                 objects: Arc::new(objects),
                 root: Path::from(prefix),

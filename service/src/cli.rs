@@ -204,12 +204,59 @@ pub enum InputFormat {
 
 #[derive(Debug, Args)]
 pub struct ParseOptions {
-    #[arg(long)]
-    pub model: PathBuf,
+    /// Model directory (as written by `arcwright train`).
+    #[arg(long, required_unless_present = "store", conflicts_with = "store")]
+    pub model: Option<PathBuf>,
+    /// Take the model from a store instead (a path, file:///abs/path or s3://bucket/prefix):
+    /// the version that alias `live` of `--name` points at, or `--version`.
+    #[arg(long, requires = "name")]
+    pub store: Option<String>,
+    /// Model name in the store.
+    #[arg(long, requires = "store")]
+    pub name: Option<String>,
+    /// A version id instead of the `live` alias.
+    #[arg(long, requires = "store")]
+    pub version: Option<String>,
+    /// Where models taken from a store are kept after verification.
+    #[arg(long, default_value = ".cache/models")]
+    pub cache: PathBuf,
     #[arg(long, value_enum)]
     pub decoder: Option<AlgorithmArg>,
     #[arg(long, value_enum, default_value = "conllu")]
     pub input: InputFormat,
+    /// Parse the files listed in this file (a path or URL; one input path or URL per line,
+    /// blank lines and `#` comments skipped) instead of stdin.
+    #[arg(long, requires = "out")]
+    pub files: Option<String>,
+    /// Where parses of `--files` go (a folder or s3://bucket/prefix): `<input name>.conllu`
+    /// per input file, plus `_shards/<INDEX>-of-<COUNT>.json` when the shard is done.
+    #[arg(long, requires = "files")]
+    pub out: Option<String>,
+    /// Parse only this shard of the list: entries whose 0-based position modulo COUNT equals
+    /// INDEX, e.g. `--shard 3/8` (in a Kubernetes Indexed Job: `$(JOB_COMPLETION_INDEX)/8`).
+    #[arg(long, value_parser = parse_shard, requires = "files", default_value = "0/1")]
+    pub shard: Shard,
+    /// Parsing threads (default: one per core).
+    #[arg(long)]
+    pub threads: Option<usize>,
+}
+
+/// Which part of a file list one process parses.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Shard {
+    pub index: usize,
+    pub count: usize,
+}
+
+fn parse_shard(value: &str) -> Result<Shard, String> {
+    let bad = || format!("{value:?}: expected INDEX/COUNT with 0 <= INDEX < COUNT, e.g. 2/8");
+    let (index, count) = value.split_once('/').ok_or_else(bad)?;
+    let index: usize = index.trim().parse().map_err(|_| bad())?;
+    let count: usize = count.trim().parse().map_err(|_| bad())?;
+    if count == 0 || index >= count {
+        return Err(bad());
+    }
+    Ok(Shard { index, count })
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]

@@ -1,58 +1,297 @@
-//! `arcwright parse`: stdin (CoNLL-U or plain text) to CoNLL-U on stdout.
+//! `arcwright parse`: stdin (CoNLL-U, plain text or tokens) to CoNLL-U on stdout, or a shard of
+//! a file list to one CoNLL-U object per input file.
+//!
+//! With `--files LIST --out PREFIX --shard INDEX/COUNT`, each process parses the list entries
+//! whose 0-based position modulo COUNT is INDEX (round robin: deterministic, needs no
+//! coordination, and every process can check the whole list for clashing output names). Inputs
+//! and outputs are paths or store URLs (`s3://bucket/key`), so a Kubernetes Indexed Job can
+//! spread a corpus over pods that read the model from the same store the service follows.
+//! Each output object is written whole, in one put, after its file is parsed: a pod that dies
+//! leaves complete outputs or none, and a retried pod overwrites with identical bytes. When the
+//! shard is done, `PREFIX/_shards/INDEX-of-COUNT.json` records what it did.
 
+use std::collections::HashMap;
 use std::io::{Read, Write};
+use std::path::PathBuf;
+use std::time::Instant;
 
 use arcwright_parser::conllu::{self, Sentence};
+use arcwright_parser::decode::Algorithm;
 use arcwright_parser::model::Model;
 use arcwright_parser::tokenize;
+use arcwright_store::{ObjectUrl, Store, StoreError, join_url};
+use rayon::prelude::*;
 
 use super::Failure;
-use crate::cli::{InputFormat, ParseOptions};
+use crate::cli::{InputFormat, ParseOptions, Shard};
+
+fn store_failure(error: StoreError) -> Failure {
+    match error {
+        StoreError::Backend { .. } | StoreError::Io { .. } => Failure::runtime(error),
+        _ => Failure::bad_input(error),
+    }
+}
 
 pub fn run(options: &ParseOptions) -> Result<(), Failure> {
-    let model = Model::load(&options.model).map_err(Failure::bad_input)?;
-    let mut input = Vec::new();
-    std::io::stdin()
-        .read_to_end(&mut input)
-        .map_err(|e| Failure::runtime(format!("stdin: {e}")))?;
-    let mut sentences: Vec<Sentence> = match options.input {
+    let runtime = tokio::runtime::Builder::new_current_thread()
+        .enable_all()
+        .build()
+        .map_err(Failure::runtime)?;
+    let (model, model_id) = runtime.block_on(load_model(options))?;
+    let threads = options.threads.unwrap_or(0);
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(Failure::runtime)?;
+    let decoder = options.decoder.map(Into::into);
+    match (&options.files, &options.out) {
+        (Some(list), Some(out)) => runtime.block_on(parse_files(
+            &model, &model_id, &pool, decoder, options, list, out,
+        )),
+        _ => {
+            let mut input = Vec::new();
+            std::io::stdin()
+                .read_to_end(&mut input)
+                .map_err(|e| Failure::runtime(format!("stdin: {e}")))?;
+            let mut sentences = read_sentences("<stdin>", &input, options.input)?;
+            pool.install(|| parse_all(&model, &mut sentences, decoder));
+            std::io::stdout()
+                .write_all(write_sentences(&sentences).as_bytes())
+                .map_err(|e| Failure::runtime(format!("stdout: {e}")))
+        }
+    }
+}
+
+/// The model and a name for it (`name@version` from a store, the directory otherwise).
+async fn load_model(options: &ParseOptions) -> Result<(Model, String), Failure> {
+    let (dir, id): (PathBuf, String) = match (&options.model, &options.store, &options.name) {
+        (Some(dir), _, _) => (dir.clone(), dir.display().to_string()),
+        (None, Some(url), Some(name)) => {
+            let store = Store::open(url).map_err(store_failure)?;
+            let version = match &options.version {
+                Some(version) => version.clone(),
+                None => {
+                    store
+                        .alias(name, "live")
+                        .await
+                        .map_err(store_failure)?
+                        .ok_or_else(|| {
+                            Failure::bad_input(format!(
+                                "model {name} has no live alias in {url}; give --version"
+                            ))
+                        })?
+                        .version
+                }
+            };
+            let (dir, _) = store
+                .fetch(name, &version, &options.cache)
+                .await
+                .map_err(store_failure)?;
+            (dir, format!("{name}@{version}"))
+        }
+        _ => return Err(Failure::bad_input("give --model DIR or --store URL --name NAME")),
+    };
+    let model = Model::load(&dir).map_err(Failure::bad_input)?;
+    Ok((model, id))
+}
+
+/// Sentences of one input in the chosen format; errors name the source (and line, for CoNLL-U).
+fn read_sentences(
+    source: &str,
+    bytes: &[u8],
+    format: InputFormat,
+) -> Result<Vec<Sentence>, Failure> {
+    let text = || {
+        std::str::from_utf8(bytes)
+            .map_err(|e| Failure::bad_input(format!("{source}: invalid UTF-8: {e}")))
+    };
+    Ok(match format {
         InputFormat::Conllu => {
-            conllu::read_bytes("<stdin>", &input)
+            conllu::read_bytes(source, bytes)
                 .map_err(Failure::bad_input)?
                 .sentences
         }
-        InputFormat::Text => {
-            let text = String::from_utf8(input)
-                .map_err(|e| Failure::bad_input(format!("<stdin>: invalid UTF-8: {e}")))?;
-            tokenize::sentences(&text)
-                .into_iter()
-                .map(Sentence::from_forms)
-                .collect()
+        InputFormat::Text => tokenize::sentences(text()?)
+            .into_iter()
+            .map(Sentence::from_forms)
+            .collect(),
+        InputFormat::Tokens => text()?
+            .lines()
+            .filter(|l| !l.trim().is_empty())
+            .map(|l| Sentence::from_forms(l.split_whitespace()))
+            .collect(),
+    })
+}
+
+/// Fills UPOS, HEAD and DEPREL of every sentence, in parallel on the current rayon pool.
+fn parse_all(model: &Model, sentences: &mut [Sentence], decoder: Option<Algorithm>) {
+    sentences.par_iter_mut().for_each(|sentence| {
+        if sentence.is_empty() {
+            return;
         }
-        InputFormat::Tokens => {
-            let text = String::from_utf8(input)
-                .map_err(|e| Failure::bad_input(format!("<stdin>: invalid UTF-8: {e}")))?;
-            text.lines()
-                .filter(|l| !l.trim().is_empty())
-                .map(|l| Sentence::from_forms(l.split_whitespace()))
-                .collect()
+        let forms: Vec<String> = sentence.words().map(|w| w.form.clone()).collect();
+        let parsed = model.parse(&forms, None, None, decoder);
+        for (i, word) in sentence.words_mut().enumerate() {
+            word.upos = parsed.tags[i].clone();
+            word.head = Some(parsed.heads[i]);
+            word.deprel = parsed.labels[i].clone();
         }
-    };
-    let decoder = options.decoder.map(Into::into);
+    });
+}
+
+fn write_sentences(sentences: &[Sentence]) -> String {
     let mut out = String::new();
-    for sentence in &mut sentences {
-        if !sentence.is_empty() {
-            let forms: Vec<String> = sentence.words().map(|w| w.form.clone()).collect();
-            let parsed = model.parse(&forms, None, None, decoder);
-            for (i, word) in sentence.words_mut().enumerate() {
-                word.upos = parsed.tags[i].clone();
-                word.head = Some(parsed.heads[i]);
-                word.deprel = parsed.labels[i].clone();
-            }
-        }
+    for sentence in sentences {
         sentence.write_to(&mut out);
     }
-    std::io::stdout()
-        .write_all(out.as_bytes())
-        .map_err(|e| Failure::runtime(format!("stdout: {e}")))
+    out
+}
+
+/// One entry of a file list: where it was listed, where it is, where its parse goes.
+#[derive(Debug)]
+struct Entry {
+    line: usize,
+    input: String,
+    output_name: String,
+}
+
+/// Reads a file list: one path or URL per line; blank lines and `#` comments skipped. Output
+/// names (`<input name without extension>.conllu`) must be unique over the whole list, so that
+/// every shard agrees and no shard overwrites another's output.
+fn entries(list_url: &str, text: &str) -> Result<Vec<Entry>, Failure> {
+    let mut entries = Vec::new();
+    let mut first_line_of: HashMap<String, usize> = HashMap::new();
+    for (i, raw) in text.lines().enumerate() {
+        let line = i + 1;
+        let input = raw.trim();
+        if input.is_empty() || input.starts_with('#') {
+            continue;
+        }
+        let name = input.rsplit('/').next().unwrap_or(input);
+        let stem = match name.rsplit_once('.') {
+            Some((stem, _)) if !stem.is_empty() => stem,
+            _ => name,
+        };
+        if stem.is_empty() || stem.starts_with('_') {
+            return Err(Failure::bad_input(format!(
+                "{list_url}:{line}: {input:?} has no usable file name (names starting with _ \
+                 are reserved for shard reports)"
+            )));
+        }
+        let output_name = format!("{stem}.conllu");
+        if let Some(first) = first_line_of.insert(output_name.clone(), line) {
+            return Err(Failure::bad_input(format!(
+                "{list_url}:{line}: {input:?} would be written to {output_name}, like the entry \
+                 on line {first}; rename one of them"
+            )));
+        }
+        entries.push(Entry {
+            line,
+            input: input.to_string(),
+            output_name,
+        });
+    }
+    Ok(entries)
+}
+
+async fn parse_files(
+    model: &Model,
+    model_id: &str,
+    pool: &rayon::ThreadPool,
+    decoder: Option<Algorithm>,
+    options: &ParseOptions,
+    list: &str,
+    out: &str,
+) -> Result<(), Failure> {
+    let started = Instant::now();
+    let Shard { index, count } = options.shard;
+    let list_bytes = ObjectUrl::parse(list)
+        .map_err(store_failure)?
+        .read()
+        .await
+        .map_err(store_failure)?;
+    let list_text = std::str::from_utf8(&list_bytes)
+        .map_err(|e| Failure::bad_input(format!("{list}: invalid UTF-8: {e}")))?;
+    let all = entries(list, list_text)?;
+    // Parse every URL of the shard before the first input is read: a typo fails fast.
+    let mut mine = Vec::new();
+    for entry in all.iter().skip(index).step_by(count) {
+        let input = ObjectUrl::parse(&entry.input)
+            .map_err(|e| Failure::bad_input(format!("{list}:{}: {e}", entry.line)))?;
+        let output =
+            ObjectUrl::parse(&join_url(out, &entry.output_name)).map_err(store_failure)?;
+        mine.push((entry, input, output));
+    }
+    let (mut sentences_done, mut tokens_done) = (0usize, 0usize);
+    let mut outputs = Vec::new();
+    for (entry, input, output) in &mine {
+        let bytes = input.read().await.map_err(|e| match e {
+            StoreError::NotFound { .. } => {
+                Failure::bad_input(format!("{list}:{}: {e}", entry.line))
+            }
+            other => store_failure(other),
+        })?;
+        let mut sentences = read_sentences(input.url(), &bytes, options.input)?;
+        pool.install(|| parse_all(model, &mut sentences, decoder));
+        sentences_done += sentences.len();
+        tokens_done += sentences.iter().map(|s| s.words().count()).sum::<usize>();
+        output
+            .write(write_sentences(&sentences).into_bytes())
+            .await
+            .map_err(store_failure)?;
+        outputs.push(output.url().to_string());
+    }
+    let seconds = started.elapsed().as_secs_f64();
+    let report = serde_json::json!({
+        "shard": format!("{index}/{count}"),
+        "model": model_id,
+        "list": list,
+        "listed": all.len(),
+        "files": outputs.len(),
+        "outputs": outputs,
+        "sentences": sentences_done,
+        "tokens": tokens_done,
+        "seconds": seconds,
+    });
+    let report_url = join_url(out, &format!("_shards/{index}-of-{count}.json"));
+    ObjectUrl::parse(&report_url)
+        .map_err(store_failure)?
+        .write(serde_json::to_vec_pretty(&report).map_err(Failure::runtime)?)
+        .await
+        .map_err(store_failure)?;
+    eprintln!(
+        "shard {index}/{count}: {} of {} files, {sentences_done} sentences, {tokens_done} tokens \
+         in {seconds:.2} s ({:.0} sentences/s); report {report_url}",
+        outputs.len(),
+        all.len(),
+        sentences_done as f64 / seconds.max(1e-9),
+    );
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn entries_skip_comments_and_name_outputs() {
+        let list = "# corpus\n\ncorpus/a.txt\ns3://bucket/in/b.conllu\nc\n";
+        let got = entries("list", list).unwrap();
+        let names: Vec<_> = got.iter().map(|e| (e.line, e.output_name.as_str())).collect();
+        assert_eq!(names, [(3, "a.conllu"), (4, "b.conllu"), (5, "c.conllu")]);
+    }
+
+    #[test]
+    fn clashing_output_names_name_both_lines() {
+        let error = entries("list.txt", "x/a.txt\ny/a.conllu\n").unwrap_err();
+        assert_eq!(error.exit_code, 2);
+        assert!(error.message.contains("list.txt:2"), "{}", error.message);
+        assert!(error.message.contains("line 1"), "{}", error.message);
+    }
+
+    #[test]
+    fn reserved_names_are_refused() {
+        let error = entries("list.txt", "ok.txt\n_shards.txt\n").unwrap_err();
+        assert!(error.message.contains("list.txt:2"), "{}", error.message);
+    }
 }
