@@ -34,6 +34,22 @@ pub enum Command {
     Store(StoreOptions),
     /// Serve every live model of a store over gRPC and HTTP/JSON, following model changes.
     Serve(crate::server::config::ServeArgs),
+    /// Ask a running service whether it is serving (grpc.health.v1); exit 0 if so, 1 if not.
+    /// For container health checks, where the runtime image has no other client.
+    Health(HealthOptions),
+}
+
+#[derive(Debug, Args)]
+pub struct HealthOptions {
+    /// The service's gRPC address.
+    #[arg(long, env = "ARCWRIGHT_GRPC", default_value = "127.0.0.1:50051")]
+    pub grpc: String,
+    /// The health service name to ask about ("" = the whole server).
+    #[arg(long, default_value = "")]
+    pub service: String,
+    /// Give up after this many seconds.
+    #[arg(long, default_value_t = 3.0)]
+    pub timeout: f64,
 }
 
 #[derive(Debug, Args)]

@@ -20,6 +20,7 @@ fn main() -> ExitCode {
         cli::Command::Parse(options) => commands::parse::run(&options),
         cli::Command::DemoData(options) => commands::demo::run(&options),
         cli::Command::Store(options) => commands::store::run(&options),
+        cli::Command::Health(options) => commands::health::run(&options),
         cli::Command::Serve(mut options) => match matches.subcommand_matches("serve") {
             Some(serve_matches) => match options.apply_config_file(serve_matches) {
                 Ok(()) => serve(&options),
@@ -39,8 +40,12 @@ fn main() -> ExitCode {
 
 /// `arcwright serve`: validate the configuration, then run the service on a tokio runtime.
 fn serve(args: &server::config::ServeArgs) -> Result<(), commands::Failure> {
-    server::init_tracing(args.log_json);
     let config = args.validate().map_err(commands::Failure::bad_input)?;
+    if args.check_config {
+        println!("{config:#?}");
+        return Ok(());
+    }
+    server::init_tracing(args.log_json);
     let runtime = tokio::runtime::Builder::new_multi_thread()
         .worker_threads(2)
         .enable_all()

@@ -5,6 +5,7 @@ pub mod conllu;
 pub mod decode;
 pub mod demo;
 pub mod eval;
+pub mod health;
 pub mod parse;
 pub mod store;
 pub mod train;

@@ -59,10 +59,14 @@ pub struct ServeArgs {
     /// `#` comments. A flag or an environment variable wins over the file.
     #[arg(long, env = "ARCWRIGHT_CONFIG")]
     pub config: Option<PathBuf>,
+    /// Check the settings (flags, variables, config file, admin token), print them and exit
+    /// without serving: for deployment pipelines.
+    #[arg(long)]
+    pub check_config: bool,
 }
 
-/// Validated settings.
-#[derive(Debug, Clone)]
+/// Validated settings. `Debug` shows whether an admin token is set, never the token.
+#[derive(Clone)]
 pub struct Config {
     pub store: String,
     pub http: SocketAddr,
@@ -74,6 +78,26 @@ pub struct Config {
     pub limits: Limits,
     pub threads: usize,
     pub grace: Duration,
+}
+
+impl std::fmt::Debug for Config {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Config")
+            .field("store", &self.store)
+            .field("http", &self.http)
+            .field("grpc", &self.grpc)
+            .field("default_model", &self.default_model)
+            .field("poll", &self.poll)
+            .field("cache_dir", &self.cache_dir)
+            .field(
+                "admin_token",
+                &self.admin_token.as_ref().map(|_| "<set, not shown>"),
+            )
+            .field("limits", &self.limits)
+            .field("threads", &self.threads)
+            .field("grace", &self.grace)
+            .finish()
+    }
 }
 
 /// Request limits.
