@@ -33,16 +33,26 @@ install_python_packages() {
     python3 -m pip install --quiet --disable-pip-version-check --root-user-action=ignore \
         "networkx==3.6.1" "conllu==6.0.0" "moto[server]==5.2.1" \
         "grpcio-tools==1.76.0" "grpcio-reflection==1.76.0" "grpcio-health-checking==1.76.0" \
-        "schemathesis==4.32.5"
+        "schemathesis==4.32.5" "kubernetes-validate==1.37.0" "PyYAML==6.0.3"
 }
 
 install_debian_packages() {
-    # Prometheus and promtool for the telemetry checks.
-    if command -v prometheus >/dev/null && command -v promtool >/dev/null; then
+    # Prometheus and promtool (telemetry checks), nginx (load balancer in the scale-out check),
+    # Chromium (the console's browser test).
+    local missing=()
+    command -v prometheus >/dev/null && command -v promtool >/dev/null || missing+=(prometheus)
+    command -v nginx >/dev/null || missing+=(nginx-light)
+    [[ -x /usr/bin/chromium ]] || missing+=(chromium)
+    if ((${#missing[@]} == 0)); then
         return 0
     fi
     export DEBIAN_FRONTEND=noninteractive
-    apt-get update -qq && apt-get install -y -qq --no-install-recommends prometheus >/dev/null
+    apt-get update -qq && apt-get install -y -qq --no-install-recommends "${missing[@]}" >/dev/null || return 1
+    # Package scripts may start the system-wide nginx where services are allowed to start; the
+    # tests run their own, on loopback ports, so stop that one.
+    if pgrep -x nginx >/dev/null && [[ -e /run/nginx.pid ]]; then
+        nginx -s quit 2>/dev/null || true
+    fi
 }
 
 fetch_turkish_treebank() {
@@ -67,7 +77,7 @@ PY
 TREEBANK=$CACHE/turkish-treebanks/data
 
 step "install python reference packages" install_python_packages
-step "install Debian packages (prometheus)" install_debian_packages
+step "install Debian packages (prometheus, nginx-light, chromium)" install_debian_packages
 step "fetch the Turkish treebank" fetch_turkish_treebank
 step "cargo fmt --check" cargo fmt --all -- --check
 step "cargo clippy -D warnings" cargo clippy --workspace --all-targets --release --quiet -- -D warnings
@@ -100,6 +110,12 @@ step "Prometheus scrapes arcwright serve: promtool check metrics, scaling expone
 
 step "load tests: smoke run of every scenario, report, accounting against server counters" \
     python3 tests/reference/check_load.py "$BIN" "$ROOT/target/release/arcwright-load" "$CACHE/work/load"
+
+step "deployment files: Kubernetes schemas (kubernetes-validate --strict), cross-references, image" \
+    python3 tests/reference/check_deploy.py "$BIN"
+step "scale-out: 3 replicas behind nginx on one S3 store, promote, SIGTERM; sharded corpus parse" \
+    python3 tests/reference/check_scaleout.py "$BIN" "$ROOT/target/release/arcwright-load" \
+        "$CACHE/work/turkish/model-non-projective" "$CACHE/work/turkish/split/test.conllu" "$CACHE/work/scaleout"
 
 echo
 if ((failed > 0)); then

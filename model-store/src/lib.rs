@@ -29,7 +29,7 @@ mod store;
 mod watch;
 
 pub use manifest::{FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
-pub use objects::{ObjectUrl, join_url};
 pub use names::{validate_name, validate_version};
+pub use objects::{ObjectUrl, join_url};
 pub use store::{AliasRecord, Store, StoreError, VersionSummary};
 pub use watch::AliasWatcher;

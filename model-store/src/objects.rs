@@ -15,6 +15,9 @@ use object_store::{ObjectStore, PutPayload};
 
 use crate::store::{StoreError, s3_bucket};
 
+/// A backend and the object's key in it.
+type Backend<'a> = (Arc<dyn ObjectStore>, &'a Path);
+
 /// One object: the backend holding it and its key there.
 #[derive(Debug, Clone)]
 pub struct ObjectUrl {
@@ -88,7 +91,7 @@ impl ObjectUrl {
     }
 
     /// The backend and key; `create` makes a missing local folder (for writes).
-    fn backend(&self, create: bool) -> Result<Option<(Arc<dyn ObjectStore>, &Path)>, StoreError> {
+    fn backend(&self, create: bool) -> Result<Option<Backend<'_>>, StoreError> {
         match &self.place {
             Place::Remote { objects, key } => Ok(Some((objects.clone(), key))),
             Place::Local { folder, key } => {
@@ -101,12 +104,11 @@ impl ObjectUrl {
                         source,
                     })?;
                 }
-                let objects = LocalFileSystem::new_with_prefix(folder).map_err(|e| {
-                    StoreError::BadUrl {
+                let objects =
+                    LocalFileSystem::new_with_prefix(folder).map_err(|e| StoreError::BadUrl {
                         url: self.url.clone(),
                         reason: e.to_string(),
-                    }
-                })?;
+                    })?;
                 Ok(Some((Arc::new(objects), key)))
             }
         }
@@ -143,7 +145,10 @@ impl ObjectUrl {
     /// Replaces the object's content in one step.
     pub async fn write(&self, bytes: Vec<u8>) -> Result<(), StoreError> {
         let Some((objects, key)) = self.backend(true)? else {
-            return Err(StoreError::Invalid(format!("{}: no place to write", self.url)));
+            return Err(StoreError::Invalid(format!(
+                "{}: no place to write",
+                self.url
+            )));
         };
         objects
             .put(key, PutPayload::from(bytes))
@@ -169,4 +174,3 @@ pub fn join_url(prefix: &str, name: &str) -> String {
         format!("{prefix}/{name}")
     }
 }
-

@@ -350,3 +350,44 @@ async fn the_change_feed_reports_each_new_target_once() {
         "reported once"
     );
 }
+
+#[tokio::test]
+async fn object_urls_read_write_and_name_what_is_missing() {
+    let dir = tempfile::tempdir().unwrap();
+    let url = format!("{}/nested/out/a.conllu", dir.path().display());
+    let object = arcwright_store::ObjectUrl::parse(&url).unwrap();
+    assert!(!object.exists().await.unwrap());
+    match object.read().await {
+        Err(StoreError::NotFound { what }) => assert_eq!(what, url),
+        other => panic!("expected NotFound, got {other:?}"),
+    }
+    object.write(b"first".to_vec()).await.unwrap();
+    object.write(b"second".to_vec()).await.unwrap();
+    assert_eq!(&object.read().await.unwrap()[..], b"second");
+    let file_url = format!("file://{url}");
+    let same = arcwright_store::ObjectUrl::parse(&file_url).unwrap();
+    assert_eq!(&same.read().await.unwrap()[..], b"second");
+    for bad in [
+        "s3://bucket",
+        "s3://bucket/",
+        "s3:///key",
+        "ftp://host/x",
+        "gs://b/k",
+    ] {
+        assert!(
+            matches!(
+                arcwright_store::ObjectUrl::parse(bad),
+                Err(StoreError::BadUrl { .. })
+            ),
+            "{bad}"
+        );
+    }
+    assert_eq!(
+        arcwright_store::join_url("s3://b/p", "x.conllu"),
+        "s3://b/p/x.conllu"
+    );
+    assert_eq!(
+        arcwright_store::join_url("out/", "x.conllu"),
+        "out/x.conllu"
+    );
+}

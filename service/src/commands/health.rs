@@ -47,6 +47,9 @@ pub fn run(options: &HealthOptions) -> Result<(), Failure> {
     if status == ServingStatus::Serving {
         Ok(())
     } else {
-        Err(Failure::runtime(format!("{address}: {}", status.as_str_name())))
+        Err(Failure::runtime(format!(
+            "{address}: {}",
+            status.as_str_name()
+        )))
     }
 }

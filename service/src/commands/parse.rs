@@ -89,7 +89,11 @@ async fn load_model(options: &ParseOptions) -> Result<(Model, String), Failure> 
                 .map_err(store_failure)?;
             (dir, format!("{name}@{version}"))
         }
-        _ => return Err(Failure::bad_input("give --model DIR or --store URL --name NAME")),
+        _ => {
+            return Err(Failure::bad_input(
+                "give --model DIR or --store URL --name NAME",
+            ));
+        }
     };
     let model = Model::load(&dir).map_err(Failure::bad_input)?;
     Ok((model, id))
@@ -218,8 +222,7 @@ async fn parse_files(
     for entry in all.iter().skip(index).step_by(count) {
         let input = ObjectUrl::parse(&entry.input)
             .map_err(|e| Failure::bad_input(format!("{list}:{}: {e}", entry.line)))?;
-        let output =
-            ObjectUrl::parse(&join_url(out, &entry.output_name)).map_err(store_failure)?;
+        let output = ObjectUrl::parse(&join_url(out, &entry.output_name)).map_err(store_failure)?;
         mine.push((entry, input, output));
     }
     let (mut sentences_done, mut tokens_done) = (0usize, 0usize);
@@ -277,7 +280,10 @@ mod tests {
     fn entries_skip_comments_and_name_outputs() {
         let list = "# corpus\n\ncorpus/a.txt\ns3://bucket/in/b.conllu\nc\n";
         let got = entries("list", list).unwrap();
-        let names: Vec<_> = got.iter().map(|e| (e.line, e.output_name.as_str())).collect();
+        let names: Vec<_> = got
+            .iter()
+            .map(|e| (e.line, e.output_name.as_str()))
+            .collect();
         assert_eq!(names, [(3, "a.conllu"), (4, "b.conllu"), (5, "c.conllu")]);
     }
 
