@@ -36,6 +36,14 @@ install_python_packages() {
         "schemathesis==4.32.5" "kubernetes-validate==1.37.0" "PyYAML==6.0.3"
 }
 
+install_node_packages() {
+    # playwright-core (pinned in tests/ui/package-lock.json) drives Debian's Chromium.
+    if [[ -d tests/ui/node_modules/playwright-core ]]; then
+        return 0
+    fi
+    (cd tests/ui && npm ci --no-audit --no-fund --loglevel=error)
+}
+
 install_debian_packages() {
     # Prometheus and promtool (telemetry checks), nginx (load balancer in the scale-out check),
     # Chromium (the console's browser test).
@@ -78,6 +86,7 @@ TREEBANK=$CACHE/turkish-treebanks/data
 
 step "install python reference packages" install_python_packages
 step "install Debian packages (prometheus, nginx-light, chromium)" install_debian_packages
+step "install node packages (playwright-core)" install_node_packages
 step "fetch the Turkish treebank" fetch_turkish_treebank
 step "cargo fmt --check" cargo fmt --all -- --check
 step "cargo clippy -D warnings" cargo clippy --workspace --all-targets --release --quiet -- -D warnings
@@ -116,6 +125,10 @@ step "deployment files: Kubernetes schemas (kubernetes-validate --strict), cross
 step "scale-out: 3 replicas behind nginx on one S3 store, promote, SIGTERM; sharded corpus parse" \
     python3 tests/reference/check_scaleout.py "$BIN" "$ROOT/target/release/arcwright-load" \
         "$CACHE/work/turkish/model-non-projective" "$CACHE/work/turkish/split/test.conllu" "$CACHE/work/scaleout"
+
+step "operator console in headless Chromium (playwright-core): served model, arcs = API, decoders, promote, bad input" \
+    python3 tests/reference/check_console.py "$BIN" "$CACHE/work/turkish/model-non-projective" \
+        "$CACHE/work/turkish/split/test.conllu" "$CACHE/work/console" "$ROOT/test-output/ui"
 
 echo
 if ((failed > 0)); then

@@ -314,3 +314,51 @@ async fn deadline_exceeded_is_a_clear_error() {
     assert_eq!(status, StatusCode::GATEWAY_TIMEOUT, "{json}");
     assert_eq!(json["error"]["code"], "deadline_exceeded");
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn console_is_served_with_a_same_origin_only_policy() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    let state = server::build_state(&config(
+        &tmp.path().join("store"),
+        &tmp.path().join("cache"),
+        Duration::from_secs(5),
+    ))
+    .await
+    .expect("state");
+    for (path, content_type) in [
+        ("/ui", "text/html"),
+        ("/ui/console.css", "text/css"),
+        ("/ui/console.js", "text/javascript"),
+    ] {
+        let response = server::http::router(state.clone())
+            .oneshot(Request::get(path).body(Body::empty()).expect("request"))
+            .await
+            .expect("response");
+        assert_eq!(response.status(), StatusCode::OK, "{path}");
+        let header = |name: &str| {
+            response
+                .headers()
+                .get(name)
+                .and_then(|v| v.to_str().ok())
+                .unwrap_or_default()
+                .to_string()
+        };
+        assert!(header("content-type").starts_with(content_type), "{path}");
+        let policy = header("content-security-policy");
+        assert!(policy.contains("default-src 'none'"), "{path}: {policy}");
+        assert!(policy.contains("connect-src 'self'"), "{path}: {policy}");
+        let body = response
+            .into_body()
+            .collect()
+            .await
+            .expect("body")
+            .to_bytes();
+        // Nothing in the page points outside the service (the SVG namespace is a name, not a
+        // request).
+        let text = String::from_utf8_lossy(&body).replace("http://www.w3.org/2000/svg", "");
+        assert!(
+            !text.contains("http://") && !text.contains("https://"),
+            "{path}"
+        );
+    }
+}

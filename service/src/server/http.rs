@@ -72,6 +72,7 @@ pub fn router(state: Arc<AppState>) -> Router {
                 )
             }),
         )
+        .merge(super::ui::routes())
         .route("/healthz", get(|| async { "ok" }))
         .route("/readyz", get(ready))
         .route(

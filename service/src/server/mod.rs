@@ -16,6 +16,7 @@ mod openapi;
 pub mod registry;
 pub mod request;
 pub mod scaling;
+mod ui;
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};

@@ -1,0 +1,692 @@
+// arcwright console. Talks only to this service's own routes: /v1/models, /v1/models/{name}/activate,
+// /v1/scaling, /metrics and /v1/parse. No framework, no outside requests; all text from the API is
+// put into the page with textContent, never as markup.
+"use strict";
+
+const SVG_NS = "http://www.w3.org/2000/svg";
+const $ = (id) => document.getElementById(id);
+const TRAFFIC_WINDOW_SECONDS = 600;
+
+const state = {
+  models: [],
+  traffic: [], // {t, requests, errors} rates per second
+  lastCounts: null,
+  lastParse: null, // {request, results: [{decoder, body}]}
+};
+
+// ---------------------------------------------------------------------------------------------
+// Small helpers
+
+function el(tag, attrs = {}, ...children) {
+  const node = document.createElement(tag);
+  for (const [key, value] of Object.entries(attrs)) {
+    if (value === undefined || value === null || value === false) continue;
+    if (key === "class") node.className = value;
+    else if (key.startsWith("on")) node.addEventListener(key.slice(2), value);
+    else node.setAttribute(key, value === true ? "" : String(value));
+  }
+  for (const child of children.flat()) {
+    if (child === null || child === undefined) continue;
+    node.append(child instanceof Node ? child : document.createTextNode(String(child)));
+  }
+  return node;
+}
+
+function svg(tag, attrs = {}, text) {
+  const node = document.createElementNS(SVG_NS, tag);
+  for (const [key, value] of Object.entries(attrs)) {
+    if (value !== undefined && value !== null) node.setAttribute(key, String(value));
+  }
+  if (text !== undefined) node.textContent = text;
+  return node;
+}
+
+async function api(path, options = {}) {
+  const headers = { ...(options.headers || {}) };
+  if (options.body !== undefined) headers["content-type"] = "application/json";
+  let response;
+  try {
+    response = await fetch(path, {
+      method: options.method || (options.body !== undefined ? "POST" : "GET"),
+      headers,
+      body: options.body !== undefined ? JSON.stringify(options.body) : undefined,
+      cache: "no-store",
+    });
+  } catch (error) {
+    return { ok: false, status: 0, error: { code: "unreachable", message: "the service did not answer" } };
+  }
+  const text = await response.text();
+  let body = null;
+  try {
+    body = text ? JSON.parse(text) : null;
+  } catch (_) {
+    body = null;
+  }
+  if (response.ok) return { ok: true, status: response.status, body };
+  const error = (body && body.error) || { code: String(response.status), message: text || response.statusText };
+  return { ok: false, status: response.status, error };
+}
+
+function formatBytes(n) {
+  if (n >= 1 << 20) return (n / (1 << 20)).toFixed(1) + " MiB";
+  if (n >= 1 << 10) return (n / (1 << 10)).toFixed(1) + " KiB";
+  return n + " B";
+}
+
+function formatTime(ms) {
+  if (!ms) return "";
+  const d = new Date(ms);
+  return d.toLocaleString(undefined, { hour12: false });
+}
+
+function formatSeconds(s) {
+  if (s >= 1) return s.toFixed(2) + " s";
+  if (s >= 1e-3) return (s * 1e3).toFixed(s >= 0.1 ? 0 : 1) + " ms";
+  return (s * 1e6).toFixed(0) + " µs";
+}
+
+function setStatus(ok, text) {
+  const status = $("status");
+  status.className = "status " + (ok ? "ok" : "down");
+  status.replaceChildren(el("span", { class: "dot", "aria-hidden": "true" }), text);
+}
+
+function showMessage(node, text, isError) {
+  node.hidden = !text;
+  node.className = "message" + (isError ? " error" : "");
+  node.textContent = text || "";
+}
+
+// ---------------------------------------------------------------------------------------------
+// Models
+
+async function refreshModels() {
+  const reply = await api("/v1/models");
+  if (!reply.ok) {
+    setStatus(false, "service unreachable: " + reply.error.message);
+    return;
+  }
+  state.models = reply.body.models || [];
+  const serving = state.models.filter((m) => m.serving);
+  setStatus(
+    serving.length > 0,
+    serving.length > 0
+      ? `ready · serving ${serving.map((m) => m.name + " " + m.serving.version).join(", ")}`
+      : "no model loaded yet",
+  );
+  renderModels();
+  fillModelPicker();
+}
+
+function previousLive(model) {
+  // The version `live` pointed at before the current one: the latest successful swap into the
+  // served version tells where it came from.
+  const swaps = (model.swaps || []).filter((s) => s.ok && s.to === model.live && s.from);
+  return swaps.length ? swaps[swaps.length - 1].from : null;
+}
+
+function renderModels() {
+  const list = $("models-list");
+  const cards = state.models.map((model) => {
+    const servingVersion = model.serving ? model.serving.version : null;
+    const head = el(
+      "div",
+      { class: "model-head" },
+      el("h3", {}, model.name, model.default ? el("span", { class: "pill" }, "default") : null),
+      el(
+        "span",
+        { class: "serving", "data-serving-model": model.name, "data-serving-version": servingVersion || "" },
+        servingVersion ? `serving ${servingVersion}` : "not serving",
+      ),
+      model.serving
+        ? el("span", {}, `loaded ${formatTime(model.serving.loaded_at_unix_ms)} in ${formatSeconds(model.serving.load_seconds)}`)
+        : null,
+      el("span", {}, "live → ", el("code", {}, model.live || "none")),
+      servingVersion && model.live && servingVersion !== model.live
+        ? el("span", { class: "pill warn" }, "switching to live…")
+        : null,
+    );
+    const rollbackTo = previousLive(model);
+    const rollback = el(
+      "button",
+      {
+        type: "button",
+        class: "secondary",
+        disabled: !rollbackTo,
+        title: rollbackTo ? `Point live back at ${rollbackTo}` : "No earlier live version seen by this replica",
+        onclick: () => activate(model.name, rollbackTo, "roll back"),
+      },
+      rollbackTo ? `Roll back live to ${rollbackTo}` : "Roll back live",
+    );
+    const rows = (model.versions || [])
+      .slice()
+      .reverse()
+      .map((v) => {
+        const scores = v.scores && typeof v.scores === "object"
+          ? ["uas", "las"].filter((k) => typeof v.scores[k] === "number").map((k) => `${k.toUpperCase()} ${v.scores[k].toFixed(2)}`).join(" · ")
+          : "";
+        const isLive = v.version === model.live;
+        return el(
+          "tr",
+          { class: v.version === servingVersion ? "is-serving" : null },
+          el("td", { class: "mono" }, v.version),
+          el("td", {}, v.created || ""),
+          el("td", { class: "num" }, formatBytes(v.size_bytes || 0)),
+          el("td", {}, (v.aliases || []).join(", ")),
+          el("td", {}, scores),
+          el(
+            "td",
+            {},
+            el(
+              "button",
+              {
+                type: "button",
+                class: "secondary promote",
+                "data-version": v.version,
+                disabled: isLive,
+                onclick: () => activate(model.name, v.version, "promote"),
+              },
+              isLive ? "live" : "Make live",
+            ),
+          ),
+        );
+      });
+    const versions = el(
+      "div",
+      { class: "scroll" },
+      el(
+        "table",
+        {},
+        el("caption", { class: "hint" }, `${(model.versions || []).length} version(s), newest first`),
+        el("thead", {}, el("tr", {}, el("th", {}, "version"), el("th", {}, "published"), el("th", { class: "num" }, "size"),
+          el("th", {}, "aliases"), el("th", {}, "scores"), el("th", {}, ""))),
+        el("tbody", {}, rows),
+      ),
+    );
+    const swaps = (model.swaps || []).slice(-5).reverse();
+    const swapList = el(
+      "div",
+      { class: "scroll" },
+      el(
+        "table",
+        { class: "swaps" },
+        el("caption", { class: "hint" }, "Last swaps on this replica"),
+        el("thead", {}, el("tr", {}, el("th", {}, "time"), el("th", {}, "from"), el("th", {}, "to"), el("th", {}, "result"))),
+        el(
+          "tbody",
+          {},
+          swaps.length
+            ? swaps.map((s) =>
+              el("tr", {}, el("td", {}, formatTime(s.at_unix_ms)), el("td", { class: "mono" }, s.from || "—"),
+                el("td", { class: "mono" }, s.to), el("td", {}, s.ok ? "ok" : "failed: " + (s.message || ""))))
+            : el("tr", {}, el("td", { colspan: 4 }, "none yet")),
+        ),
+      ),
+    );
+    return el("div", { class: "model-card", "data-model": model.name }, head, versions, el("p", {}, rollback), swapList);
+  });
+  // Keep keyboard focus where it was when the list is redrawn.
+  const focused = document.activeElement;
+  const focusKey = focused && focused.dataset ? focused.dataset.version : null;
+  list.replaceChildren(...(cards.length ? cards : [el("p", {}, "No models in the store yet.")]));
+  if (focusKey) {
+    const again = list.querySelector(`button[data-version="${CSS.escape(focusKey)}"]`);
+    if (again) again.focus();
+  }
+}
+
+async function activate(name, version, verb) {
+  const message = $("admin-message");
+  const token = $("admin-token").value.trim();
+  if (!version) return;
+  if (!token) {
+    showMessage(message, "Enter the admin token first.", true);
+    $("admin-token").focus();
+    return;
+  }
+  showMessage(message, `Asking to ${verb} ${name} to ${version}…`, false);
+  const reply = await api(`/v1/models/${encodeURIComponent(name)}/activate`, {
+    body: { version },
+    headers: { authorization: "Bearer " + token },
+  });
+  if (!reply.ok) {
+    showMessage(message, `${verb} failed: ${reply.error.message}`, true);
+    return;
+  }
+  showMessage(message, `live → ${version}; waiting for this replica to load it…`, false);
+  const deadline = Date.now() + 30000;
+  while (Date.now() < deadline) {
+    await refreshModels();
+    const model = state.models.find((m) => m.name === name);
+    if (model && model.serving && model.serving.version === version) {
+      showMessage(message, `${name} now serves ${version}.`, false);
+      return;
+    }
+    await new Promise((r) => setTimeout(r, 500));
+  }
+  showMessage(message, `live points at ${version}, but this replica has not loaded it yet; see the swaps table.`, true);
+}
+
+function fillModelPicker() {
+  const pick = $("model-pick");
+  const current = pick.value;
+  const names = state.models.filter((m) => m.serving).map((m) => m.name);
+  const same = names.length === pick.options.length && names.every((n, i) => pick.options[i].value === n);
+  if (same) return;
+  pick.replaceChildren(...names.map((n) => el("option", { value: n }, n)));
+  const fallback = state.models.find((m) => m.default && m.serving);
+  pick.value = names.includes(current) ? current : fallback ? fallback.name : names[0] || "";
+}
+
+// ---------------------------------------------------------------------------------------------
+// Performance: latency by length (log–log) and traffic
+
+function logScale(min, max, from, to) {
+  const a = Math.log(min), b = Math.log(max);
+  return (v) => from + ((Math.log(v) - a) / (b - a)) * (to - from);
+}
+
+async function refreshScaling() {
+  const reply = await api("/v1/scaling");
+  if (!reply.ok) return;
+  drawLatency(reply.body);
+  $("refresh-note").textContent = "updated " + new Date().toLocaleTimeString(undefined, { hour12: false });
+}
+
+function drawLatency(report) {
+  const stage = $("stage-pick").value;
+  const decoders = ["projective", "non-projective"];
+  const series = decoders.map((decoder) => ({
+    decoder,
+    points: (report.buckets || [])
+      .filter((b) => b.stage === stage && b.decoder === decoder && b.length_bucket !== "+Inf" && b.p50_seconds > 0)
+      .map((b) => ({ x: Number(b.length_bucket), y: b.p50_seconds, count: b.count }))
+      .sort((p, q) => p.x - q.x),
+    fit: (report.fits || []).find((f) => f.stage === stage && f.decoder === decoder),
+  }));
+  const all = series.flatMap((s) => s.points);
+  const W = 560, H = 320, L = 58, R = 16, T = 14, B = 40;
+  const root = svg("svg", { viewBox: `0 0 ${W} ${H}`, role: "img", "aria-label": `median ${stage} latency by sentence length` });
+  if (all.length === 0) {
+    root.append(svg("text", { x: W / 2, y: H / 2, "text-anchor": "middle" }, `no ${stage} timings yet — parse some sentences`));
+    $("latency-chart").replaceChildren(root);
+    $("latency-caption").textContent = "Waiting for parses…";
+    return;
+  }
+  const xMin = 4, xMax = 1024;
+  let yMin = Math.min(...all.map((p) => p.y)) / 2, yMax = Math.max(...all.map((p) => p.y)) * 2;
+  // At least three decades, so slopes 2 and 3 are visibly different.
+  if (yMax / yMin < 1000) yMin = yMax / 1000;
+  const sx = logScale(xMin, xMax, L, W - R), sy = logScale(yMin, yMax, H - B, T);
+  for (let x = 8; x <= 512; x *= 2) {
+    root.append(svg("line", { class: "grid", x1: sx(x), x2: sx(x), y1: T, y2: H - B }));
+    root.append(svg("text", { x: sx(x), y: H - B + 14, "text-anchor": "middle" }, String(x)));
+  }
+  for (let e = Math.ceil(Math.log10(yMin)); e <= Math.floor(Math.log10(yMax)); e++) {
+    const v = Math.pow(10, e);
+    root.append(svg("line", { class: "grid", x1: L, x2: W - R, y1: sy(v), y2: sy(v) }));
+    root.append(svg("text", { x: L - 6, y: sy(v) + 4, "text-anchor": "end" }, formatSeconds(v)));
+  }
+  root.append(svg("line", { class: "axis", x1: L, x2: W - R, y1: H - B, y2: H - B }));
+  root.append(svg("line", { class: "axis", x1: L, x2: L, y1: T, y2: H - B }));
+  root.append(svg("text", { x: (L + W - R) / 2, y: H - 6, "text-anchor": "middle" }, "sentence length (tokens, bucket upper bound)"));
+  // Reference slopes 2 and 3 through the first point of the first series with data.
+  const anchor = series.find((s) => s.points.length)?.points[0];
+  const clip = (slope) => {
+    const y = (x) => anchor.y * Math.pow(x / anchor.x, slope);
+    let x2 = xMax;
+    if (y(x2) > yMax) x2 = anchor.x * Math.pow(yMax / anchor.y, 1 / slope);
+    return { x1: anchor.x, y1: anchor.y, x2, y2: y(x2) };
+  };
+  for (const slope of [2, 3]) {
+    const g = clip(slope);
+    root.append(svg("line", { class: "guide", x1: sx(g.x1), y1: sy(g.y1), x2: sx(g.x2), y2: sy(g.y2) }));
+    root.append(svg("text", { x: sx(g.x2) - 4, y: sy(g.y2) + 12, "text-anchor": "end" }, `slope ${slope}`));
+  }
+  const captions = [];
+  for (const s of series) {
+    if (!s.points.length) continue;
+    const cls = "series-" + s.decoder;
+    const path = s.points.map((p, i) => `${i ? "L" : "M"}${sx(p.x).toFixed(1)},${sy(p.y).toFixed(1)}`).join(" ");
+    root.append(svg("path", { class: cls, d: path, fill: "none", "stroke-width": 2 }));
+    for (const p of s.points) {
+      const dot = svg("circle", { class: cls, cx: sx(p.x), cy: sy(p.y), r: 3.5 });
+      dot.append(svg("title", {}, `${s.decoder}, ≤${p.x} tokens: median ${formatSeconds(p.y)} over ${p.count} sentences`));
+      root.append(dot);
+    }
+    if (s.fit && s.points.length >= 2) {
+      // The fitted line, through the geometric centre of the plotted points.
+      const gx = Math.exp(s.points.reduce((a, p) => a + Math.log(p.x), 0) / s.points.length);
+      const gy = Math.exp(s.points.reduce((a, p) => a + Math.log(p.y), 0) / s.points.length);
+      const first = s.points[0].x, last = s.points[s.points.length - 1].x;
+      const at = (x) => gy * Math.pow(x / gx, s.fit.exponent);
+      root.append(svg("line", { class: "fit " + cls, x1: sx(first), y1: sy(at(first)), x2: sx(last), y2: sy(at(last)) }));
+    }
+    captions.push(s.fit
+      ? `${s.decoder}: fitted slope ${s.fit.exponent.toFixed(2)} (R² ${s.fit.r_squared.toFixed(2)}, ${s.fit.samples} recent sentences of ≥ ${report.min_tokens} tokens)`
+      : `${s.decoder}: not enough sentences of ≥ ${report.min_tokens} tokens for a fit yet`);
+  }
+  const legend = svg("g", {});
+  series.forEach((s, i) => {
+    legend.append(svg("rect", { class: "series-" + s.decoder, x: L + 10, y: T + 6 + i * 16, width: 10, height: 10 }));
+    legend.append(svg("text", { x: L + 26, y: T + 15 + i * 16 }, s.decoder));
+  });
+  root.append(legend);
+  $("latency-chart").replaceChildren(root);
+  $("latency-caption").textContent = `Median ${stage} time per sentence. ` + captions.join("; ") + ".";
+}
+
+function parseCounters(text) {
+  let requests = 0, errors = 0;
+  for (const line of text.split("\n")) {
+    if (!line.startsWith("arcwright_requests_total{")) continue;
+    const value = Number(line.slice(line.lastIndexOf(" ") + 1));
+    const code = /code="([^"]*)"/.exec(line);
+    requests += value;
+    if (code && code[1].toLowerCase() !== "ok") errors += value;
+  }
+  return { requests, errors };
+}
+
+async function refreshTraffic() {
+  let text;
+  try {
+    const response = await fetch("/metrics", { cache: "no-store" });
+    if (!response.ok) return;
+    text = await response.text();
+  } catch (_) {
+    return;
+  }
+  const now = Date.now() / 1000;
+  const counts = parseCounters(text);
+  if (state.lastCounts) {
+    const dt = now - state.lastCounts.t;
+    if (dt > 0) {
+      state.traffic.push({
+        t: now,
+        requests: Math.max(0, counts.requests - state.lastCounts.requests) / dt,
+        errors: Math.max(0, counts.errors - state.lastCounts.errors) / dt,
+      });
+    }
+  }
+  state.lastCounts = { t: now, ...counts };
+  state.traffic = state.traffic.filter((p) => now - p.t <= TRAFFIC_WINDOW_SECONDS);
+  drawTraffic(now);
+}
+
+function drawTraffic(now) {
+  const W = 560, H = 320, L = 58, R = 16, T = 14, B = 40;
+  const root = svg("svg", { viewBox: `0 0 ${W} ${H}`, role: "img", "aria-label": "requests and errors per second" });
+  const points = state.traffic;
+  const yMax = Math.max(1, ...points.map((p) => p.requests)) * 1.15;
+  const sx = (t) => L + ((t - (now - TRAFFIC_WINDOW_SECONDS)) / TRAFFIC_WINDOW_SECONDS) * (W - R - L);
+  const sy = (v) => H - B - (v / yMax) * (H - B - T);
+  for (let i = 0; i <= 4; i++) {
+    const v = (yMax / 4) * i;
+    root.append(svg("line", { class: "grid", x1: L, x2: W - R, y1: sy(v), y2: sy(v) }));
+    root.append(svg("text", { x: L - 6, y: sy(v) + 4, "text-anchor": "end" }, v >= 10 ? v.toFixed(0) : v.toFixed(1)));
+  }
+  for (let m = 0; m <= 10; m += 2) {
+    root.append(svg("text", { x: sx(now - m * 60), y: H - B + 14, "text-anchor": "middle" }, m === 0 ? "now" : `−${m} min`));
+  }
+  root.append(svg("line", { class: "axis", x1: L, x2: W - R, y1: H - B, y2: H - B }));
+  root.append(svg("text", { x: (L + W - R) / 2, y: H - 6, "text-anchor": "middle" }, "requests/s on this replica (all APIs)"));
+  for (const p of points) {
+    if (p.errors > 0) {
+      root.append(svg("rect", { class: "error-bar", x: sx(p.t) - 2, y: sy(p.errors), width: 4, height: H - B - sy(p.errors) }));
+    }
+  }
+  if (points.length >= 2) {
+    const d = points.map((p, i) => `${i ? "L" : "M"}${sx(p.t).toFixed(1)},${sy(p.requests).toFixed(1)}`).join(" ");
+    root.append(svg("path", { class: "traffic-line", d }));
+  }
+  $("traffic-chart").replaceChildren(root);
+  const last = points[points.length - 1];
+  $("traffic-caption").textContent = last
+    ? `Now ${last.requests.toFixed(1)} requests/s, ${last.errors.toFixed(1)} errors/s (sampled every 2 s since this page opened; last 10 minutes).`
+    : "Collecting the first samples…";
+}
+
+// ---------------------------------------------------------------------------------------------
+// Try a sentence
+
+function requestBody(decoder) {
+  const text = $("sentence").value;
+  const kind = document.querySelector('input[name="input-kind"]:checked').value;
+  const body = { confidence: $("confidence-pick").checked };
+  const model = $("model-pick").value;
+  if (model) body.model = model;
+  if (decoder) body.decoder = decoder;
+  if (kind === "tokens") body.tokens = text.split(/\s+/).filter((t) => t.length > 0);
+  else body.text = text;
+  return body;
+}
+
+async function parse(event) {
+  if (event) event.preventDefault();
+  const button = $("parse-button");
+  const compare = $("compare-pick").checked;
+  const decoders = compare ? ["projective", "non-projective"] : [$("decoder-pick").value];
+  button.disabled = true;
+  showMessage($("parse-error"), "", true);
+  const started = performance.now();
+  try {
+    const replies = await Promise.all(decoders.map((d) => api("/v1/parse", { body: requestBody(d) })));
+    const failed = replies.find((r) => !r.ok);
+    if (failed) {
+      showMessage($("parse-error"), `${failed.error.message} (${failed.error.code})`, true);
+      $("parse-result").hidden = true;
+      return;
+    }
+    const results = replies.map((r, i) => ({ decoder: decoders[i], body: r.body }));
+    state.lastParse = { results, ms: performance.now() - started };
+    renderParse();
+  } finally {
+    button.disabled = false;
+  }
+}
+
+function crossingArcs(heads) {
+  // heads[i] = head of word i+1; arcs as spans between positions (0 = root, left of every word).
+  const spans = heads.map((h, i) => [Math.min(h, i + 1), Math.max(h, i + 1)]);
+  const crossing = new Set();
+  for (let a = 0; a < spans.length; a++) {
+    for (let b = a + 1; b < spans.length; b++) {
+      const [l1, r1] = spans[a], [l2, r2] = spans[b];
+      if ((l1 < l2 && l2 < r1 && r1 < r2) || (l2 < l1 && l1 < r2 && r2 < r1)) {
+        crossing.add(a);
+        crossing.add(b);
+      }
+    }
+  }
+  return crossing;
+}
+
+let measureContext = null;
+function textWidth(text, font) {
+  if (!measureContext) measureContext = document.createElement("canvas").getContext("2d");
+  measureContext.font = font;
+  return measureContext.measureText(text).width;
+}
+
+function drawTree(tokens, title, otherHeads) {
+  const heads = tokens.map((t) => t.head);
+  const crossing = crossingArcs(heads);
+  const family = getComputedStyle(document.body).fontFamily;
+  const widths = tokens.map((t) => Math.max(textWidth(t.form, `15px ${family}`), textWidth(t.tag || "", `11px ${family}`), 28));
+  const xs = [];
+  let x = 24;
+  for (const w of widths) {
+    xs.push(x + w / 2);
+    x += w + 22;
+  }
+  const width = Math.max(x + 4, 200);
+  const maxSpan = Math.max(1, ...tokens.map((t, i) => (t.head === 0 ? 1 : Math.abs(t.head - (i + 1)))));
+  const arcHeight = (d) => Math.min(26 + 20 * d, 340);
+  const top = arcHeight(maxSpan) * 0.75 + 34;
+  const y0 = top + 6;
+  const height = y0 + 48;
+  const root = svg("svg", {
+    class: "tree", width, height, viewBox: `0 0 ${width} ${height}`, role: "img",
+    "aria-label": `${title}: dependency tree of ${tokens.length} words`,
+  });
+  tokens.forEach((t, i) => {
+    root.append(svg("text", { class: "word", x: xs[i], y: y0 + 20, "text-anchor": "middle" }, t.form));
+    root.append(svg("text", { class: "tag", x: xs[i], y: y0 + 36, "text-anchor": "middle" }, t.tag || ""));
+  });
+  tokens.forEach((t, i) => {
+    const m = i + 1;
+    const confidence = typeof t.confidence === "number" ? Math.max(0, Math.min(1, t.confidence)) : null;
+    const classes = ["arc"];
+    if (crossing.has(i)) classes.push("crossing");
+    if (otherHeads && otherHeads[i] !== t.head) classes.push("differs");
+    const xm = xs[i];
+    let d, labelX, labelY;
+    if (t.head === 0) {
+      d = `M${xm},10 L${xm},${y0 - 6}`;
+      labelX = xm + 4;
+      labelY = 22;
+    } else {
+      const xh = xs[t.head - 1] + (t.head < m ? 4 : -4);
+      const h = arcHeight(Math.abs(t.head - m));
+      d = `M${xh},${y0} C${xh},${y0 - h} ${xm},${y0 - h} ${xm},${y0 - 6}`;
+      labelX = (xh + xm) / 2;
+      labelY = y0 - h * 0.75 - 4;
+    }
+    const arc = svg("path", {
+      class: classes.join(" "),
+      d,
+      "data-head": t.head,
+      "data-dependent": m,
+      "data-label": t.label,
+      "data-confidence": confidence === null ? "" : confidence.toFixed(4),
+      "stroke-width": confidence === null ? 1.8 : (1 + 2.2 * confidence).toFixed(2),
+      "stroke-opacity": confidence === null ? 1 : (0.3 + 0.7 * confidence).toFixed(2),
+    });
+    const headForm = t.head === 0 ? "ROOT" : tokens[t.head - 1].form;
+    arc.append(svg("title", {}, `${headForm} → ${t.form}: ${t.label}` + (confidence === null ? "" : `, confidence ${confidence.toFixed(3)}`)));
+    root.append(arc);
+    root.append(svg("path", {
+      class: "arrow" + (crossing.has(i) ? " crossing" : ""),
+      d: `M${xm - 4},${y0 - 9} L${xm + 4},${y0 - 9} L${xm},${y0 - 1} Z`,
+      "fill-opacity": confidence === null ? 1 : (0.3 + 0.7 * confidence).toFixed(2),
+    }));
+    root.append(svg("text", { class: "arc-label", x: labelX, y: labelY, "text-anchor": t.head === 0 ? "start" : "middle", "data-dependent": m }, t.label));
+  });
+  const crossings = crossing.size;
+  const differs = otherHeads ? heads.filter((h, i) => h !== otherHeads[i]).length : 0;
+  return el(
+    "div",
+    { class: "diagram", "data-decoder": title },
+    el("h3", {}, title, crossings ? ` · ${crossings} arcs in crossings` : " · no crossing arcs",
+      otherHeads ? ` · ${differs} head(s) differ` : ""),
+    el("div", { class: "scroll" }, root),
+  );
+}
+
+function conllu(results) {
+  const first = results[0];
+  const lines = [];
+  first.body.sentences.forEach((sentence, k) => {
+    lines.push(`# sent_id = ${k + 1}`);
+    lines.push(`# text = ${sentence.tokens.map((t) => t.form).join(" ")}`);
+    lines.push(`# arcwright_model = ${first.body.model.name} ${first.body.model.version}`);
+    for (const t of sentence.tokens) {
+      const field = (v) => (v === undefined || v === null || v === "" ? "_" : String(v).replace(/[\t\n]/g, " "));
+      lines.push([t.id, field(t.form), "_", field(t.tag), "_", "_", t.head, field(t.label), "_", "_"].join("\t"));
+    }
+    lines.push("");
+  });
+  return lines.join("\n") + "\n";
+}
+
+function renderParse() {
+  const { results, ms } = state.lastParse;
+  const first = results[0].body;
+  const decoderNames = results.map((r) => r.decoder || "model default");
+  $("result-meta").textContent = `${first.model.name} ${first.model.version} · ${decoderNames.join(" vs ")} · ` +
+    `${first.sentences.length} sentence(s) · ${ms.toFixed(0)} ms round trip`;
+  const diagrams = $("diagrams");
+  diagrams.className = "diagrams" + (results.length > 1 ? " pair" : "");
+  const blocks = [];
+  first.sentences.forEach((_, k) => {
+    results.forEach((r, j) => {
+      const tokens = r.body.sentences[k].tokens;
+      const other = results.length > 1 ? results[1 - j].body.sentences[k].tokens.map((t) => t.head) : null;
+      const title = (results.length > 1 || first.sentences.length > 1 ? `sentence ${k + 1}, ` : "") + (r.decoder || "model default");
+      blocks.push(drawTree(tokens, title, other));
+    });
+  });
+  const legend = el("p", { class: "legend" },
+    el("span", { class: "sw" }), "arc (thicker and darker = more confident) ",
+    el("span", { class: "sw crossing" }), "arc in a crossing ",
+    results.length > 1 ? [el("span", { class: "sw differs" }), "head differs between decoders"] : null);
+  diagrams.replaceChildren(...blocks, legend);
+  const tables = results.flatMap((r) =>
+    r.body.sentences.map((sentence, k) =>
+      el("div", { class: "scroll" },
+        el("table", { class: "parse-table", "data-decoder": r.decoder || "" },
+          el("caption", { class: "hint" }, `${r.decoder || "model default"}, sentence ${k + 1}`),
+          el("thead", {}, el("tr", {}, el("th", { class: "num" }, "id"), el("th", {}, "form"), el("th", {}, "tag"),
+            el("th", {}, "head"), el("th", {}, "label"), el("th", { class: "num" }, "confidence"))),
+          el("tbody", {}, sentence.tokens.map((t) =>
+            el("tr", {},
+              el("td", { class: "num" }, t.id), el("td", {}, t.form), el("td", {}, t.tag),
+              el("td", {}, t.head === 0 ? "0 (root)" : `${t.head} ${sentence.tokens[t.head - 1].form}`),
+              el("td", {}, t.label),
+              el("td", { class: "num" }, typeof t.confidence === "number" ? t.confidence.toFixed(3) : "—"))))))));
+  $("tables").replaceChildren(...tables);
+  $("conllu-text").textContent = conllu(results);
+  $("copy-note").textContent = "";
+  $("parse-result").hidden = false;
+}
+
+async function copyConllu() {
+  const text = $("conllu-text").textContent;
+  try {
+    await navigator.clipboard.writeText(text);
+    $("copy-note").textContent = "Copied.";
+  } catch (_) {
+    // Clipboard refused (permissions): select the text so Ctrl+C copies it.
+    const pre = $("conllu-text");
+    pre.closest("details").open = true;
+    const range = document.createRange();
+    range.selectNodeContents(pre);
+    const selection = window.getSelection();
+    selection.removeAllRanges();
+    selection.addRange(range);
+    $("copy-note").textContent = "Selected: press Ctrl+C to copy.";
+  }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Start-up and polling
+
+function every(seconds, task) {
+  const run = async () => {
+    if (!document.hidden) {
+      try {
+        await task();
+      } catch (error) {
+        console.error(error);
+      }
+    }
+    setTimeout(run, seconds * 1000);
+  };
+  run();
+}
+
+document.addEventListener("DOMContentLoaded", () => {
+  $("parse-form").addEventListener("submit", parse);
+  $("sentence").addEventListener("keydown", (e) => {
+    if (e.key === "Enter" && (e.ctrlKey || e.metaKey)) parse(e);
+  });
+  $("copy-conllu").addEventListener("click", copyConllu);
+  $("stage-pick").addEventListener("change", refreshScaling);
+  $("compare-pick").addEventListener("change", () => {
+    $("decoder-pick").disabled = $("compare-pick").checked;
+  });
+  every(3, refreshModels);
+  every(5, refreshScaling);
+  every(2, refreshTraffic);
+});
