@@ -314,8 +314,13 @@ function drawLatency(report) {
     return;
   }
   const xMin = 4, xMax = 1024;
-  let yMin = Math.min(...all.map((p) => p.y)) / 2, yMax = Math.max(...all.map((p) => p.y)) * 2;
-  // At least three decades, so slopes 2 and 3 are visibly different.
+  // Reference slopes 2 and 3 start at the first point of the first series with data and run
+  // over the measured lengths, at least three octaves, so the two are visibly different.
+  const anchor = series.find((s) => s.points.length).points[0];
+  const lastX = Math.max(...all.map((p) => p.x));
+  const guideEnd = Math.min(512, Math.max(lastX, anchor.x * 8));
+  let yMin = Math.min(...all.map((p) => p.y)) / 2;
+  let yMax = Math.max(Math.max(...all.map((p) => p.y)), anchor.y * Math.pow(guideEnd / anchor.x, 3)) * 2;
   if (yMax / yMin < 1000) yMin = yMax / 1000;
   const sx = logScale(xMin, xMax, L, W - R), sy = logScale(yMin, yMax, H - B, T);
   for (let x = 8; x <= 512; x *= 2) {
@@ -330,18 +335,10 @@ function drawLatency(report) {
   root.append(svg("line", { class: "axis", x1: L, x2: W - R, y1: H - B, y2: H - B }));
   root.append(svg("line", { class: "axis", x1: L, x2: L, y1: T, y2: H - B }));
   root.append(svg("text", { x: (L + W - R) / 2, y: H - 6, "text-anchor": "middle" }, "sentence length (tokens, bucket upper bound)"));
-  // Reference slopes 2 and 3 through the first point of the first series with data.
-  const anchor = series.find((s) => s.points.length)?.points[0];
-  const clip = (slope) => {
-    const y = (x) => anchor.y * Math.pow(x / anchor.x, slope);
-    let x2 = xMax;
-    if (y(x2) > yMax) x2 = anchor.x * Math.pow(yMax / anchor.y, 1 / slope);
-    return { x1: anchor.x, y1: anchor.y, x2, y2: y(x2) };
-  };
   for (const slope of [2, 3]) {
-    const g = clip(slope);
-    root.append(svg("line", { class: "guide", x1: sx(g.x1), y1: sy(g.y1), x2: sx(g.x2), y2: sy(g.y2) }));
-    root.append(svg("text", { x: sx(g.x2) - 4, y: sy(g.y2) + 12, "text-anchor": "end" }, `slope ${slope}`));
+    const y2 = anchor.y * Math.pow(guideEnd / anchor.x, slope);
+    root.append(svg("line", { class: "guide", x1: sx(anchor.x), y1: sy(anchor.y), x2: sx(guideEnd), y2: sy(y2) }));
+    root.append(svg("text", { x: sx(guideEnd) + 4, y: sy(y2) + 4, "text-anchor": "start" }, `slope ${slope}`));
   }
   const captions = [];
   for (const s of series) {
@@ -368,8 +365,8 @@ function drawLatency(report) {
   }
   const legend = svg("g", {});
   series.forEach((s, i) => {
-    legend.append(svg("rect", { class: "series-" + s.decoder, x: L + 10, y: T + 6 + i * 16, width: 10, height: 10 }));
-    legend.append(svg("text", { x: L + 26, y: T + 15 + i * 16 }, s.decoder));
+    legend.append(svg("rect", { class: "series-" + s.decoder, x: W - R - 120, y: H - B - 40 + i * 16, width: 10, height: 10 }));
+    legend.append(svg("text", { x: W - R - 104, y: H - B - 31 + i * 16 }, s.decoder));
   });
   root.append(legend);
   $("latency-chart").replaceChildren(root);
