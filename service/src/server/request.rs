@@ -430,9 +430,9 @@ fn parse_sentence(
                 tag: tags[m - 1].clone(),
                 head,
                 label: model.labels[label].clone(),
-                // Matrix-Tree marginals can lose their digits on extremely peaked scores (a known
-                // gap, see arcwright_parser::marginals::matrix_tree); a column that does not sum
-                // to 1 is not reported rather than reported wrong.
+                // A guard: the marginals recompute any column that loses digits to cancellation
+                // (arcwright_parser::marginals::matrix_tree), so every column should sum to 1;
+                // one that does not would be left out rather than reported wrong.
                 confidence: marginals.as_ref().and_then(|p| {
                     let total: f64 = (0..decoded.heads.len()).map(|h| p.probability(h, m)).sum();
                     ((total - 1.0).abs() <= 1e-6).then(|| p.probability(head, m))
