@@ -326,31 +326,53 @@ async fn main() -> anyhow::Result<()> {
                 ),
             ] {
                 let client = Client::connect(api, &target.http, &target.grpc, None, false).await?;
-                for rate in rates {
+                // Up the ladder until a step fails; then (full runs) halve the gap between the
+                // last good and the first failing rate twice, so the knee is known to within a
+                // quarter of the last step rather than a whole step.
+                let mut last_good: Option<f64> = None;
+                let mut first_bad: Option<f64> = None;
+                let mut queue: std::collections::VecDeque<f64> = rates.into_iter().collect();
+                let mut refinements = if quick { 0 } else { 2 };
+                let mut runs = Vec::new();
+                while let Some(rate) = queue.pop_front() {
                     let r = openloop::run(&client, &medium, &plan(rate, seconds, batch)).await;
                     generated += r.sent;
                     let within = r.latency.p99_ms <= budget_ms * batch as f64
                         && r.errors == 0
                         && r.shed == 0
                         && r.client_overloaded == 0;
+                    runs.push(r);
                     if within {
-                        suite.knees.insert(name.to_string(), rate * batch as f64);
-                        if api == Api::GrpcParse {
-                            suite.knee_rate = Some(rate);
+                        last_good = Some(last_good.map_or(rate, |g: f64| g.max(rate)));
+                    } else {
+                        first_bad = Some(first_bad.map_or(rate, |b: f64| b.min(rate)));
+                        queue.clear(); // past the knee: no higher step
+                    }
+                    if let (true, Some(good), Some(bad)) =
+                        (queue.is_empty() && refinements > 0, last_good, first_bad)
+                    {
+                        let middle = ((good + bad) / 2.0).round();
+                        if middle > good && middle < bad {
+                            refinements -= 1;
+                            queue.push_back(middle);
                         }
                     }
+                }
+                runs.sort_by(|a, b| a.offered_rate.total_cmp(&b.offered_rate));
+                if let Some(good) = last_good {
+                    suite.knees.insert(name.to_string(), good * batch as f64);
                     if api == Api::GrpcParse {
-                        suite.step_up.push(r);
-                    } else {
-                        suite
-                            .step_up_other
-                            .entry(name.to_string())
-                            .or_default()
-                            .push(r);
+                        suite.knee_rate = Some(good);
                     }
-                    if !within {
-                        break;
-                    }
+                }
+                if api == Api::GrpcParse {
+                    suite.step_up.extend(runs);
+                } else {
+                    suite
+                        .step_up_other
+                        .entry(name.to_string())
+                        .or_default()
+                        .extend(runs);
                 }
             }
             let grpc =

@@ -87,15 +87,41 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
     let outstanding = Arc::new(tokio::sync::Semaphore::new(plan.max_outstanding));
     let interval = Duration::from_secs_f64(1.0 / plan.rate.max(0.001));
     let started = Instant::now();
+    // The schedule is kept by a thread of its own sleeping on the OS clock (tens of
+    // microseconds late at most), not by the async runtime's timer, whose 1 ms ticks would make
+    // every request up to a millisecond late — lateness that the latency, measured from the
+    // scheduled time, would then charge to the server.
+    let (ticks, mut due) = tokio::sync::mpsc::unbounded_channel::<Instant>();
+    let (duration, max_ticks) = (plan.duration, plan.max_requests);
+    let pacer = std::thread::Builder::new()
+        .name("load-pacer".into())
+        .spawn(move || {
+            let mut next = started;
+            let mut count = 0usize;
+            while next.duration_since(started) < duration && count < max_ticks {
+                let now = Instant::now();
+                if next > now {
+                    std::thread::sleep(next - now);
+                }
+                if ticks.send(next).is_err() {
+                    break;
+                }
+                count += 1;
+                next += interval;
+            }
+        });
+    if pacer.is_err() {
+        return RunResult {
+            offered_rate: plan.rate,
+            first_errors: vec!["could not start the pacing thread".to_string()],
+            ..RunResult::default()
+        };
+    }
     let mut tasks = Vec::new();
     let mut index = 0usize;
     let mut sent = 0u64;
     let mut skipped = 0u64;
-    let mut next = started;
-    while next.duration_since(started) < plan.duration && (sent as usize) < plan.max_requests {
-        tokio::time::sleep_until(next.into()).await;
-        let scheduled = next;
-        next += interval;
+    while let Some(scheduled) = due.recv().await {
         let Ok(permit) = outstanding.clone().try_acquire_owned() else {
             skipped += 1;
             continue;

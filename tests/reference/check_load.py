@@ -3,7 +3,12 @@
 the report produced (JSON, Markdown, two SVG plots), and the generator's request count equal to
 the server's `arcwright_requests_total`. Checks correctness, not speed.
 
-Usage: check_load.py ARCWRIGHT_BINARY LOAD_BINARY WORK_DIR [--full OUT_DIR]
+Usage: check_load.py ARCWRIGHT_BINARY LOAD_BINARY WORK_DIR [--full OUT_DIR [TURKISH_MODEL TEST_CONLLU]]
+
+--full runs the full-length suite (minutes) and writes the report to OUT_DIR (the committed one
+is load-tests/); the server then accepts sentences of up to 512 tokens (the by-length scenario
+goes to 400 words), and with a Turkish model and test file the steady scenario also parses the
+real test sentences with that model.
 """
 
 import json
@@ -21,11 +26,22 @@ import check_service as cs  # noqa: E402
 def main():
     binary, load, work = sys.argv[1:4]
     full = sys.argv[5] if len(sys.argv) > 5 and sys.argv[4] == "--full" else None
+    turkish = sys.argv[6:8] if full and len(sys.argv) > 7 else None
     shutil.rmtree(work, ignore_errors=True)
     os.makedirs(work)
     store = os.path.join(work, "store")
     http_port, grpc_port = cs.free_port(), cs.free_port()
-    proc, base = cs.start(binary, store, work, http_port, grpc_port, poll="5")
+    extra = ["--max-tokens", "512", "--default-model", "demo"] if full else []
+    proc, base = cs.start(binary, store, work, http_port, grpc_port, poll="5", extra=extra)
+    if turkish:
+        # A second model, served next to the bootstrapped demo model once the follower sees it.
+        cs.promote(binary, store, "turkish", cs.publish(binary, store, "turkish", turkish[0]))
+        deadline = time.time() + 30
+        while time.time() < deadline:
+            models = cs.http(base, "/v1/models")[1]["models"]
+            if any(m["name"] == "turkish" and m.get("serving") for m in models):
+                break
+            time.sleep(0.5)
     failures = []
     try:
         listed = json.loads(subprocess.run([binary, "store", "list", "--store", store, "--name", "demo", "--json"],
@@ -41,6 +57,8 @@ def main():
                 "--server-pid", str(proc.pid), "--model-dir", fetched]
         if not full:
             args.append("--quick")
+        if turkish:
+            args += ["--conllu", turkish[1], "--conllu-model", "turkish"]
         started = time.time()
         run = subprocess.run(args, capture_output=True, text=True, timeout=1800)
         print(f"suite finished in {time.time() - started:.0f} s: {run.stdout.strip()}")

@@ -73,14 +73,14 @@ def http(base, path, body=None, token=None, timeout=30):
         return e.code, json.loads(e.read() or b"null")
 
 
-def start(binary, store, work, http_port, grpc_port, poll="1"):
+def start(binary, store, work, http_port, grpc_port, poll="1", extra=()):
     token_file = os.path.join(work, "admin-token")
     with open(token_file, "w") as f:
         f.write(TOKEN)
     log = open(os.path.join(work, f"serve-{http_port}.log"), "w")
     proc = subprocess.Popen([binary, "serve", "--store", store, "--http", f"127.0.0.1:{http_port}",
                              "--grpc", f"127.0.0.1:{grpc_port}", "--poll-seconds", poll, "--admin-token-file", token_file,
-                             "--cache-dir", os.path.join(work, "serving-cache"), "--grace-seconds", "10"],
+                             "--cache-dir", os.path.join(work, "serving-cache"), "--grace-seconds", "10", *extra],
                             stdout=log, stderr=log)
     base = f"http://127.0.0.1:{http_port}"
     for _ in range(300):
