@@ -361,8 +361,10 @@ fn exact_column(
     best_head: usize,
     m: usize,
     probabilities: &mut [f64],
-) {
+    effort: &mut Effort,
+) -> bool {
     let n = scaled.n;
+    let elimination = (n as u64).pow(3) / 3 + 1;
     let side = n + 1;
     let single = root == RootConstraint::SingleRoot;
     let mut heads: Vec<usize> = (0..=n).filter(|&h| h != m + 1).collect();
@@ -395,12 +397,19 @@ fn exact_column(
             };
         let mut probability = f64::NAN;
         if base.log_det.is_finite() {
+            if !effort.spend(elimination) {
+                return false;
+            }
             let log_det = restricted_log_det(scaled, root, head, m);
             if log_det.is_finite() {
                 probability = (log_weight + log_det - base.log_det).exp();
             }
         }
         if !probability.is_finite() {
+            let log_space = LOG_SPACE_COST * elimination * if log_z.is_none() { 2 } else { 1 };
+            if !effort.spend(log_space) {
+                return false;
+            }
             // A pivot of the scaled doubles underflowed to zero (in the single-root case the word
             // rows can lose all their excess, which then sits in the root row alone): the same
             // ratio from the log-space elimination.
@@ -422,6 +431,33 @@ fn exact_column(
             let p = &mut probabilities[head * side + m + 1];
             *p = if p.is_finite() { p.min(left) } else { 0.0 };
         }
+    }
+    true
+}
+
+/// Relative cost of one elimination in log space (a log-add per step) against linear space.
+const LOG_SPACE_COST: u64 = 20;
+
+/// How much extra work the recomputation of cancelled columns may take, counted in
+/// multiply-adds (one elimination of an n×n Laplacian is n³/3; in log space 20× that).
+/// Columns that would exceed it are marked unreliable instead ([`Marginals::reliable`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Effort {
+    pub operations: u64,
+}
+
+impl Effort {
+    /// No limit: every column exact, whatever it costs (O(n⁴) on the most peaked inputs).
+    pub const UNLIMITED: Effort = Effort {
+        operations: u64::MAX,
+    };
+
+    fn spend(&mut self, cost: u64) -> bool {
+        if cost > self.operations {
+            return false;
+        }
+        self.operations -= cost;
+        true
     }
 }
 
@@ -509,8 +545,17 @@ fn restricted_log_partition(
     })
 }
 
-/// Marginals over all spanning trees rooted at 0.
+/// Marginals over all spanning trees rooted at 0, every column exact.
 pub fn marginals(scores: &ScoreMatrix, root: RootConstraint) -> Marginals {
+    marginals_within(scores, root, Effort::UNLIMITED)
+}
+
+/// Marginals over all spanning trees rooted at 0, recomputing cancelled columns only within
+/// `effort`; columns left over are marked unreliable (for a service that must bound the cost
+/// of a request: peaked scores on long sentences can need an elimination per column).
+pub fn marginals_within(scores: &ScoreMatrix, root: RootConstraint, effort: Effort) -> Marginals {
+    let mut effort = effort;
+    let mut unreliable = Vec::new();
     let n = scores.words();
     let side = n + 1;
     let scaled = scale(scores, root);
@@ -566,7 +611,7 @@ pub fn marginals(scores: &ScoreMatrix, root: RootConstraint) -> Marginals {
         if at_risk || !sums_to_one {
             let best = best_tree
                 .get_or_insert_with(|| crate::decode::chu_liu_edmonds::decode(scores, root));
-            exact_column(
+            let exact = exact_column(
                 scores,
                 root,
                 &scaled,
@@ -574,7 +619,11 @@ pub fn marginals(scores: &ScoreMatrix, root: RootConstraint) -> Marginals {
                 best[m + 1],
                 m,
                 &mut probabilities,
+                &mut effort,
             );
+            if !exact {
+                unreliable.push(m + 1);
+            }
         }
     }
     if probabilities.iter().any(|p| p.is_nan()) {
@@ -587,5 +636,7 @@ pub fn marginals(scores: &ScoreMatrix, root: RootConstraint) -> Marginals {
             probabilities[best[m] * side + m] = 1.0;
         }
     }
-    Marginals::new(side, probabilities, log_partition)
+    let mut marginals = Marginals::new(side, probabilities, log_partition);
+    marginals.mark_unreliable(&unreliable);
+    marginals
 }

@@ -22,6 +22,9 @@ pub struct Marginals {
     probabilities: Vec<f64>,
     /// log Σ_trees exp(score(tree)).
     pub log_partition: f64,
+    /// Words whose incoming marginals may be inaccurate (a bounded computation ran out of its
+    /// [`matrix_tree::Effort`]); empty for unbounded computations.
+    unreliable: Vec<usize>,
 }
 
 impl Marginals {
@@ -30,7 +33,18 @@ impl Marginals {
             side,
             probabilities,
             log_partition,
+            unreliable: Vec::new(),
         }
+    }
+
+    pub(crate) fn mark_unreliable(&mut self, words: &[usize]) {
+        self.unreliable.extend_from_slice(words);
+    }
+
+    /// Whether the marginals of the arcs into word `modifier` are accurate (always, unless a
+    /// bounded computation ran out of effort for this word).
+    pub fn reliable(&self, modifier: usize) -> bool {
+        !self.unreliable.contains(&modifier)
     }
 
     /// P(h → m); 0 for arcs that cannot exist.
@@ -52,6 +66,20 @@ pub fn marginals(scores: &ScoreMatrix, algorithm: Algorithm, root: RootConstrain
     match algorithm {
         Algorithm::Projective => inside_outside::marginals(scores, root),
         Algorithm::NonProjective => matrix_tree::marginals(scores, root),
+    }
+}
+
+/// [`marginals`] with a bound on the extra work the Matrix-Tree recomputation may take; words
+/// it could not afford are marked unreliable (inside-outside needs no such work).
+pub fn marginals_within(
+    scores: &ScoreMatrix,
+    algorithm: Algorithm,
+    root: RootConstraint,
+    effort: matrix_tree::Effort,
+) -> Marginals {
+    match algorithm {
+        Algorithm::Projective => inside_outside::marginals(scores, root),
+        Algorithm::NonProjective => matrix_tree::marginals_within(scores, root, effort),
     }
 }
 

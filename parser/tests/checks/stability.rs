@@ -60,3 +60,39 @@ fn adding_a_constant_to_every_arc_into_a_word_shifts_log_z_and_keeps_marginals()
         }
     }
 }
+
+#[test]
+fn bounded_marginals_are_exact_or_marked_unreliable() {
+    // Peaked scores on short sentences: the regime where Matrix-Tree columns cancel.
+    let mut left_unreliable = 0;
+    for seed in 0..40u64 {
+        let n = 4 + (seed as usize % 9);
+        let scores = random_scores(n, 1000.0, seed);
+        let exact = marginals::matrix_tree::marginals(&scores, RootConstraint::SingleRoot);
+        assert!((1..=n).all(|m| exact.reliable(m)));
+        for operations in [0, 50, 5_000_000] {
+            let bounded = marginals::matrix_tree::marginals_within(
+                &scores,
+                RootConstraint::SingleRoot,
+                marginals::matrix_tree::Effort { operations },
+            );
+            for m in 1..=n {
+                if !bounded.reliable(m) {
+                    left_unreliable += usize::from(operations == 0);
+                    continue;
+                }
+                for h in 0..=n {
+                    let (a, b) = (bounded.probability(h, m), exact.probability(h, m));
+                    assert!(
+                        (a - b).abs() < 1e-9,
+                        "seed {seed}, effort {operations}: P({h}→{m}) {a} vs {b}"
+                    );
+                }
+            }
+        }
+    }
+    assert!(
+        left_unreliable > 0,
+        "with no effort some cancelled column must be marked unreliable"
+    );
+}
