@@ -321,7 +321,27 @@ async fn main() -> anyhow::Result<()> {
                     if quick {
                         vec![5.0, 20.0]
                     } else {
-                        vec![10.0, 20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 160.0]
+                        vec![10.0, 20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 160.0, 200.0]
+                    },
+                ),
+                (
+                    Api::HttpBatch,
+                    "http-batch (32)",
+                    32,
+                    if quick {
+                        vec![5.0]
+                    } else {
+                        vec![10.0, 20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 160.0, 200.0]
+                    },
+                ),
+                (
+                    Api::GrpcStream,
+                    "grpc-stream (8)",
+                    8,
+                    if quick {
+                        vec![10.0]
+                    } else {
+                        vec![25.0, 50.0, 100.0, 150.0, 200.0, 300.0, 400.0, 600.0]
                     },
                 ),
             ] {
@@ -336,7 +356,12 @@ async fn main() -> anyhow::Result<()> {
                 let mut runs = Vec::new();
                 while let Some(rate) = queue.pop_front() {
                     let r = openloop::run(&client, &medium, &plan(rate, seconds, batch)).await;
-                    generated += r.sent;
+                    // The server counts each message of a stream as one request.
+                    generated += if api == Api::GrpcStream {
+                        r.sent * batch as u64
+                    } else {
+                        r.sent
+                    };
                     let within = r.latency.p99_ms <= budget_ms * batch as f64
                         && r.errors == 0
                         && r.shed == 0
