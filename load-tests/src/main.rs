@@ -334,16 +334,9 @@ async fn main() -> anyhow::Result<()> {
                         vec![10.0, 20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 160.0, 200.0]
                     },
                 ),
-                (
-                    Api::GrpcStream,
-                    "grpc-stream (8)",
-                    8,
-                    if quick {
-                        vec![10.0]
-                    } else {
-                        vec![25.0, 50.0, 100.0, 150.0, 200.0, 300.0, 400.0, 600.0]
-                    },
-                ),
+                // No step-up for ParseStream: past its knee a stream stops at its first shed
+                // message, so the server counts fewer messages than were scheduled and the
+                // request accounting could no longer be checked; its steady rate is above.
             ] {
                 let client = Client::connect(api, &target.http, &target.grpc, None, false).await?;
                 // Up the ladder until a step fails; then (full runs) halve the gap between the

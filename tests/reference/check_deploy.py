@@ -230,12 +230,14 @@ def main():
             f.write("t" * 32)
         env = {k: v for k, v in os.environ.items() if not k.startswith("ARCWRIGHT_")}
         env["ARCWRIGHT_THREADS"] = "2"  # what resourceFieldRef requests.cpu yields for "2"
-        result = subprocess.run(
-            [binary, "serve", "--config", conf, "--admin-token-file", token, "--check-config"],
-            capture_output=True,
-            text=True,
-            env=env,
-        )
+
+        def check_config():
+            return subprocess.run(
+                [binary, "serve", "--config", conf, "--admin-token-file", token, "--check-config"],
+                capture_output=True, text=True, env=env,
+            )
+
+        result = check_config()
         check(
             result.returncode == 0 and "s3://arcwright-models/production" in result.stdout,
             "arcwright serve --check-config accepts the ConfigMap's settings"
@@ -244,12 +246,7 @@ def main():
         check("t" * 32 not in result.stdout, "--check-config does not print the admin token")
         with open(conf, "a") as f:
             f.write("max-tokns = 10\n")
-        result = subprocess.run(
-            [binary, "serve", "--config", conf, "--admin-token-file", token, "--check-config"],
-            capture_output=True,
-            text=True,
-            env=env,
-        )
+        result = check_config()
         check(
             result.returncode == 2 and "unknown setting" in result.stderr,
             f"a misspelt setting is refused with its line: {result.stderr.strip()}",

@@ -22,13 +22,15 @@ import os
 import re
 import shutil
 import signal
-import socket
 import subprocess
 import sys
 import time
 import urllib.request
 
 import boto3
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+from check_service import free_port  # noqa: E402
 
 ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 POLL_SECONDS = 1.0
@@ -39,12 +41,6 @@ def check(condition, message):
     print(("ok   " if condition else "FAIL ") + message, flush=True)
     if not condition:
         failures.append(message)
-
-
-def free_port():
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def get_json(url, timeout=5):

@@ -23,14 +23,8 @@ use arcwright_store::{ObjectUrl, Store, StoreError, join_url};
 use rayon::prelude::*;
 
 use super::Failure;
+use super::store::failure as store_failure;
 use crate::cli::{InputFormat, ParseOptions, Shard};
-
-fn store_failure(error: StoreError) -> Failure {
-    match error {
-        StoreError::Backend { .. } | StoreError::Io { .. } => Failure::runtime(error),
-        _ => Failure::bad_input(error),
-    }
-}
 
 pub fn run(options: &ParseOptions) -> Result<(), Failure> {
     let runtime = tokio::runtime::Builder::new_current_thread()

@@ -5,7 +5,9 @@ use arcwright_store::{Store, StoreError};
 use super::Failure;
 use crate::cli::{StoreAction, StoreOptions};
 
-fn failure(error: StoreError) -> Failure {
+/// A store error as a command failure: backend and I/O trouble is a runtime failure (exit 1),
+/// anything about what the user asked for is bad input (exit 2).
+pub(crate) fn failure(error: StoreError) -> Failure {
     match error {
         StoreError::Backend { .. } | StoreError::Io { .. } => Failure::runtime(error),
         _ => Failure::bad_input(error),
