@@ -49,7 +49,7 @@ install_debian_packages() {
     # Chromium (the console's browser test).
     local missing=()
     command -v prometheus >/dev/null && command -v promtool >/dev/null || missing+=(prometheus)
-    command -v nginx >/dev/null || missing+=(nginx-light)
+    [[ -x /usr/sbin/nginx ]] || command -v nginx >/dev/null || missing+=(nginx-light)
     [[ -x /usr/bin/chromium ]] || missing+=(chromium)
     if ((${#missing[@]} == 0)); then
         return 0
@@ -59,7 +59,7 @@ install_debian_packages() {
     # Package scripts may start the system-wide nginx where services are allowed to start; the
     # tests run their own, on loopback ports, so stop that one.
     if pgrep -x nginx >/dev/null && [[ -e /run/nginx.pid ]]; then
-        nginx -s quit 2>/dev/null || true
+        /usr/sbin/nginx -s quit 2>/dev/null || true
     fi
 }
 

@@ -34,6 +34,9 @@ from check_service import free_port  # noqa: E402
 
 ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 POLL_SECONDS = 1.0
+# Debian puts nginx in /usr/sbin, which is not on every user's PATH.
+NGINX = shutil.which("nginx") or next(
+    (p for p in ("/usr/sbin/nginx", "/usr/local/sbin/nginx") if os.access(p, os.X_OK)), None)
 failures = []
 
 
@@ -105,10 +108,10 @@ class Fleet:
         path = os.path.join(prefix, "nginx.conf")
         with open(path, "w") as f:
             f.write(config)
-        test = subprocess.run(["nginx", "-t", "-p", prefix, "-c", path, "-e", os.path.join(prefix, "err.log")],
+        test = subprocess.run([NGINX, "-t", "-p", prefix, "-c", path, "-e", os.path.join(prefix, "err.log")],
                               capture_output=True, text=True)
         check(test.returncode == 0, f"nginx -t accepts the configuration: {test.stderr.strip()}")
-        self.nginx = subprocess.Popen(["nginx", "-p", prefix, "-c", path, "-e", os.path.join(prefix, "err.log"),
+        self.nginx = subprocess.Popen([NGINX, "-p", prefix, "-c", path, "-e", os.path.join(prefix, "err.log"),
                                        "-g", "daemon off;"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
         wait_ready(f"http://127.0.0.1:{self.http_port}", self.nginx, os.path.join(prefix, "nginx-error.log"))
 
@@ -210,7 +213,7 @@ def sharded_parse(binary, env, s3, model_dir, test_conllu, work):
 def main():
     binary, load_binary, model_dir, test_conllu, work = sys.argv[1:6]
     measure = "--measure" in sys.argv[6:]
-    if shutil.which("nginx") is None:
+    if NGINX is None:
         raise SystemExit("nginx is not installed (tests/run.sh installs Debian's nginx-light)")
     shutil.rmtree(work, ignore_errors=True)
     os.makedirs(work)
