@@ -23,7 +23,7 @@ use arcwright_store::{ObjectUrl, Store, StoreError, join_url};
 use rayon::prelude::*;
 
 use super::Failure;
-use super::store::failure as store_failure;
+use super::store::{failure as store_failure, version_or_live};
 use crate::cli::{InputFormat, ParseOptions, Shard};
 
 pub fn run(options: &ParseOptions) -> Result<(), Failure> {
@@ -62,21 +62,7 @@ async fn load_model(options: &ParseOptions) -> Result<(Model, String), Failure> 
         (Some(dir), _, _) => (dir.clone(), dir.display().to_string()),
         (None, Some(url), Some(name)) => {
             let store = Store::open(url).map_err(store_failure)?;
-            let version = match &options.version {
-                Some(version) => version.clone(),
-                None => {
-                    store
-                        .alias(name, "live")
-                        .await
-                        .map_err(store_failure)?
-                        .ok_or_else(|| {
-                            Failure::bad_input(format!(
-                                "model {name} has no live alias in {url}; give --version"
-                            ))
-                        })?
-                        .version
-                }
-            };
+            let version = version_or_live(&store, name, options.version.as_deref()).await?;
             let (dir, _) = store
                 .fetch(name, &version, &options.cache)
                 .await

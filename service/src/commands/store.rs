@@ -14,6 +14,28 @@ pub(crate) fn failure(error: StoreError) -> Failure {
     }
 }
 
+/// The version asked for, or the one alias `live` of `name` points at.
+pub(crate) async fn version_or_live(
+    store: &Store,
+    name: &str,
+    version: Option<&str>,
+) -> Result<String, Failure> {
+    if let Some(version) = version {
+        return Ok(version.to_string());
+    }
+    Ok(store
+        .alias(name, "live")
+        .await
+        .map_err(failure)?
+        .ok_or_else(|| {
+            Failure::bad_input(format!(
+                "model {name} has no live alias in {}; give --version",
+                store.url()
+            ))
+        })?
+        .version)
+}
+
 pub fn run(options: &StoreOptions) -> Result<(), Failure> {
     let runtime = tokio::runtime::Builder::new_current_thread()
         .enable_all()
@@ -173,21 +195,7 @@ async fn run_action(store: &Store, action: &StoreAction) -> Result<(), Failure> 
             version,
             cache,
         } => {
-            let version = match version {
-                Some(v) => v.clone(),
-                None => {
-                    store
-                        .alias(name, "live")
-                        .await
-                        .map_err(failure)?
-                        .ok_or_else(|| {
-                            Failure::bad_input(format!(
-                                "model {name} has no live alias; give --version"
-                            ))
-                        })?
-                        .version
-                }
-            };
+            let version = version_or_live(store, name, version.as_deref()).await?;
             let started = std::time::Instant::now();
             let (dir, _) = store.fetch(name, &version, cache).await.map_err(failure)?;
             eprintln!(
