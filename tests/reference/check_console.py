@@ -14,7 +14,7 @@ import subprocess
 import sys
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-import check_service as cs  # noqa: E402  (free_port, start, publish, promote)
+import check_service as cs  # noqa: E402  (free_port, start, publish, promote, TOKEN)
 
 ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 MAX_TOKENS = 40
@@ -47,32 +47,15 @@ def main():
     os.makedirs(work)
     ui = os.path.join(ROOT, "tests", "ui")
     if not os.path.isdir(os.path.join(ui, "node_modules", "playwright-core")):
-        subprocess.run(["npm", "ci", "--no-audit", "--no-fund", "--loglevel=error"], cwd=ui, check=True)
+        raise SystemExit("tests/ui/node_modules is missing: tests/run.sh installs it (npm ci in tests/ui)")
     store = os.path.join(work, "store")
     v1 = cs.publish(binary, store, "tr", model_dir)
     cs.promote(binary, store, "tr", v1)
     v2 = cs.publish(binary, store, "tr", model_dir)
     http_port, grpc_port = cs.free_port(), cs.free_port()
-    token_file = os.path.join(work, "admin-token")
-    with open(token_file, "w") as f:
-        f.write(cs.TOKEN)
-    log = open(os.path.join(work, "serve.log"), "w")
-    proc = subprocess.Popen(
-        [binary, "serve", "--store", store, "--http", f"127.0.0.1:{http_port}", "--grpc", f"127.0.0.1:{grpc_port}",
-         "--poll-seconds", "1", "--admin-token-file", token_file, "--max-tokens", str(MAX_TOKENS),
-         "--cache-dir", os.path.join(work, "cache")],
-        stdout=log, stderr=log)
-    base = f"http://127.0.0.1:{http_port}"
+    proc, base = cs.start(binary, store, work, http_port, grpc_port, poll="1",
+                          extra=["--max-tokens", str(MAX_TOKENS)])
     try:
-        import time
-        import urllib.request
-        for _ in range(300):
-            try:
-                with urllib.request.urlopen(base + "/readyz", timeout=1) as response:
-                    if response.status == 200:
-                        break
-            except Exception:
-                time.sleep(0.1)
         env = dict(os.environ, BASE=base, TOKEN=cs.TOKEN, MODEL="tr", V1=v1, V2=v2,
                    TOKENS=" ".join(test_sentence(test_conllu)), MAX_TOKENS=str(MAX_TOKENS), OUT=screenshots)
         result = subprocess.run(["node", os.path.join(ui, "check_console.mjs")], env=env, timeout=300)
