@@ -321,10 +321,6 @@ fn log_add_all(values: impl Iterator<Item = f64> + Clone) -> f64 {
     super::log_sum_exp(values)
 }
 
-fn log_partition_of(scores: &ScoreMatrix, root: RootConstraint) -> f64 {
-    log_partition(scores, root)
-}
-
 /// How far a column of marginals may be from summing to 1 before it is recomputed exactly.
 const COLUMN_TOLERANCE: f64 = 1e-9;
 
@@ -360,6 +356,7 @@ fn exact_column(
     base: &Factorisation,
     best_head: usize,
     m: usize,
+    log_z: f64,
     probabilities: &mut [f64],
     effort: &mut Effort,
 ) -> bool {
@@ -374,7 +371,6 @@ fn exact_column(
             .then(scores.get(b, m + 1).total_cmp(&scores.get(a, m + 1)))
             .then(a.cmp(&b))
     });
-    let mut log_z: Option<f64> = None;
     let mut covered = 0.0;
     let mut done = vec![false; side];
     for &head in &heads {
@@ -406,14 +402,13 @@ fn exact_column(
             }
         }
         if !probability.is_finite() {
-            let log_space = LOG_SPACE_COST * elimination * if log_z.is_none() { 2 } else { 1 };
+            let log_space = LOG_SPACE_COST * elimination;
             if !effort.spend(log_space) {
                 return false;
             }
             // A pivot of the scaled doubles underflowed to zero (in the single-root case the word
             // rows can lose all their excess, which then sits in the root row alone): the same
             // ratio from the log-space elimination.
-            let log_z = *log_z.get_or_insert_with(|| log_partition(scores, root));
             probability = (score + restricted_log_partition(scores, root, head, m) - log_z).exp();
         }
         let probability = if probability.is_finite() {
@@ -560,11 +555,11 @@ pub fn marginals_within(scores: &ScoreMatrix, root: RootConstraint, effort: Effo
     let side = n + 1;
     let scaled = scale(scores, root);
     let factorisation = factorise(&scaled, root);
-    let mut log_partition = factorisation.log_det + scaled.log_scale;
-    if !log_partition.is_finite() {
+    let mut log_z = factorisation.log_det + scaled.log_scale;
+    if !log_z.is_finite() {
         // Underflow in the scaled doubles (e.g. root arcs hundreds below word arcs): the
         // log-space elimination has no such limit.
-        log_partition = log_partition_of(scores, root);
+        log_z = log_partition(scores, root);
     }
     let inverse = factorisation.inverse();
     let pos = &scaled.position;
@@ -598,10 +593,7 @@ pub fn marginals_within(scores: &ScoreMatrix, root: RootConstraint, effort: Effo
         // Digits lost to cancellation in A·(L⁻¹[m][m] − L⁻¹[m][h]): about the size of the
         // terms, A·|L⁻¹|, times the rounding error. A column can sum to 1 with wrong entries
         // (the sum is an identity of the computed inverse too), so the sizes decide.
-        let inverse_size = (0..n)
-            .map(|h| inv(m, h).abs())
-            .fold(0.0, f64::max)
-            .max(if single { inv(m, 0).abs() } else { 0.0 });
+        let inverse_size = (0..n).map(|h| inv(m, h).abs()).fold(0.0, f64::max);
         let largest_weight = (0..n)
             .filter(|&h| h != m)
             .map(|h| scaled.arcs[h * n + m])
@@ -618,6 +610,7 @@ pub fn marginals_within(scores: &ScoreMatrix, root: RootConstraint, effort: Effo
                 &factorisation,
                 best[m + 1],
                 m,
+                log_z,
                 &mut probabilities,
                 &mut effort,
             );
@@ -636,7 +629,7 @@ pub fn marginals_within(scores: &ScoreMatrix, root: RootConstraint, effort: Effo
             probabilities[best[m] * side + m] = 1.0;
         }
     }
-    let mut marginals = Marginals::new(side, probabilities, log_partition);
+    let mut marginals = Marginals::new(side, probabilities, log_z);
     marginals.mark_unreliable(&unreliable);
     marginals
 }
