@@ -13,7 +13,7 @@ use object_store::local::LocalFileSystem;
 use object_store::path::Path;
 use object_store::{ObjectStore, PutPayload};
 
-use crate::store::{StoreError, s3_bucket};
+use crate::store::{Location, StoreError, locate, s3_bucket};
 
 /// A backend and the object's key in it.
 type Backend<'a> = (Arc<dyn ObjectStore>, &'a Path);
@@ -42,30 +42,21 @@ impl ObjectUrl {
             url: url.to_string(),
             reason: reason.to_string(),
         };
-        if let Some(rest) = url.strip_prefix("s3://") {
-            let Some((bucket, key)) = rest.split_once('/') else {
-                return Err(bad("expected s3://bucket/key"));
-            };
-            if bucket.is_empty() || key.is_empty() || key.ends_with('/') {
-                return Err(bad("expected s3://bucket/key"));
+        let path = match locate(url, "a path, file:///path and s3://bucket/key")? {
+            Location::S3 { bucket, rest: key } => {
+                if key.is_empty() || key.ends_with('/') {
+                    return Err(bad("expected s3://bucket/key"));
+                }
+                let key = Path::parse(key).map_err(|e| bad(&e.to_string()))?;
+                return Ok(ObjectUrl {
+                    url: url.to_string(),
+                    place: Place::Remote {
+                        objects: Arc::new(s3_bucket(url, bucket)?),
+                        key,
+                    },
+                });
             }
-            let key = Path::parse(key).map_err(|e| bad(&e.to_string()))?;
-            return Ok(ObjectUrl {
-                url: url.to_string(),
-                place: Place::Remote {
-                    objects: Arc::new(s3_bucket(url, bucket)?),
-                    key,
-                },
-            });
-        }
-        let path = match url.strip_prefix("file://") {
-            Some(p) => PathBuf::from(p),
-            None if url.contains("://") => {
-                return Err(bad(
-                    "supported are a path, file:///path and s3://bucket/key",
-                ));
-            }
-            None => PathBuf::from(url),
+            Location::Local(path) => path,
         };
         let Some(file_name) = path.file_name().and_then(|n| n.to_str()) else {
             return Err(bad("not a file path"));

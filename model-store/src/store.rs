@@ -161,6 +161,35 @@ pub(crate) fn s3_bucket(
     })
 }
 
+/// Where a store URL points: an S3 bucket and the path after it, or a local path.
+pub(crate) enum Location<'a> {
+    S3 { bucket: &'a str, rest: &'a str },
+    Local(PathBuf),
+}
+
+/// Splits a store URL (`s3://bucket/rest`, `file:///path` or a plain path); `forms` names the
+/// accepted forms in the error for any other scheme.
+pub(crate) fn locate<'a>(url: &'a str, forms: &str) -> Result<Location<'a>, StoreError> {
+    if let Some(after) = url.strip_prefix("s3://") {
+        let (bucket, rest) = after.split_once('/').unwrap_or((after, ""));
+        if bucket.is_empty() {
+            return Err(StoreError::BadUrl {
+                url: url.to_string(),
+                reason: "no bucket name after s3://".to_string(),
+            });
+        }
+        return Ok(Location::S3 { bucket, rest });
+    }
+    match url.strip_prefix("file://") {
+        Some(path) => Ok(Location::Local(PathBuf::from(path))),
+        None if url.contains("://") => Err(StoreError::BadUrl {
+            url: url.to_string(),
+            reason: format!("supported are {forms}"),
+        }),
+        None => Ok(Location::Local(PathBuf::from(url))),
+    }
+}
+
 impl Store {
     /// Opens a store from a URL: a path (`./model-store`, `file:///abs/path`) or
     /// `s3://bucket/prefix` (credentials, region and endpoint from the standard `AWS_*`
@@ -170,27 +199,16 @@ impl Store {
             url: url.to_string(),
             reason: reason.to_string(),
         };
-        if let Some(rest) = url.strip_prefix("s3://") {
-            let (bucket, prefix) = rest.split_once('/').unwrap_or((rest, ""));
-            if bucket.is_empty() {
-                return Err(bad("no bucket name after s3://"));
+        let path = match locate(url, "a path, file:///path and s3://bucket/prefix")? {
+            Location::S3 { bucket, rest } => {
+                return Ok(Store {
+                    objects: Arc::new(s3_bucket(url, bucket)?),
+                    root: Path::from(rest),
+                    url: url.to_string(),
+                    conditional: true,
+                });
             }
-            let objects = s3_bucket(url, bucket)?;
-            return Ok(Store {
-                objects: Arc::new(objects),
-                root: Path::from(prefix),
-                url: url.to_string(),
-                conditional: true,
-            });
-        }
-        let path = match url.strip_prefix("file://") {
-            Some(p) => PathBuf::from(p),
-            None if url.contains("://") => {
-                return Err(bad(
-                    "supported are a path, file:///path and s3://bucket/prefix",
-                ));
-            }
-            None => PathBuf::from(url),
+            Location::Local(path) => path,
         };
         std::fs::create_dir_all(&path).map_err(|source| StoreError::Io {
             path: path.display().to_string(),
