@@ -27,10 +27,10 @@ import sys
 import time
 import urllib.request
 
-import boto3
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 from check_service import free_port  # noqa: E402
+from check_store_s3 import start_moto  # noqa: E402
 
 ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 POLL_SECONDS = 1.0
@@ -217,23 +217,10 @@ def main():
         raise SystemExit("nginx is not installed (tests/run.sh installs Debian's nginx-light)")
     shutil.rmtree(work, ignore_errors=True)
     os.makedirs(work)
-    moto_port = free_port()
-    moto = subprocess.Popen(["moto_server", "-H", "127.0.0.1", "-p", str(moto_port)],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    env = {k: v for k, v in os.environ.items() if not k.startswith("ARCWRIGHT_")}
-    env.update(AWS_ENDPOINT_URL=f"http://127.0.0.1:{moto_port}", AWS_ACCESS_KEY_ID="test",
-               AWS_SECRET_ACCESS_KEY="test", AWS_DEFAULT_REGION="us-east-1")
+    moto, env, s3 = start_moto(["models", "corpus"],
+                               {k: v for k, v in os.environ.items() if not k.startswith("ARCWRIGHT_")})
     fleet = Fleet(binary, "s3://models/fleet", env, work)
     try:
-        s3 = boto3.client("s3", endpoint_url=env["AWS_ENDPOINT_URL"], aws_access_key_id="test",
-                          aws_secret_access_key="test", region_name="us-east-1")
-        for _ in range(100):
-            try:
-                s3.create_bucket(Bucket="models")
-                s3.create_bucket(Bucket="corpus")
-                break
-            except Exception:
-                time.sleep(0.2)
 
         def store(*args):
             result = subprocess.run([binary, "store", *args, "--store", "s3://models/fleet"],

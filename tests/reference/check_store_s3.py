@@ -36,25 +36,36 @@ class Checks:
             print("FAIL", message, file=sys.stderr)
 
 
+def start_moto(buckets, base_env=None):
+    """moto's S3 server on a free loopback port, with `buckets` created once it answers.
+    Returns the process, an environment with the AWS_* variables pointing at it, and a boto3
+    client."""
+    port = free_port()
+    proc = subprocess.Popen(["moto_server", "-H", "127.0.0.1", "-p", str(port)],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    env = dict(os.environ if base_env is None else base_env, AWS_ENDPOINT_URL=f"http://127.0.0.1:{port}",
+               AWS_ACCESS_KEY_ID="test", AWS_SECRET_ACCESS_KEY="test", AWS_DEFAULT_REGION="us-east-1")
+    s3 = boto3.client("s3", endpoint_url=env["AWS_ENDPOINT_URL"], aws_access_key_id="test",
+                      aws_secret_access_key="test", region_name="us-east-1")
+    missing = list(buckets)
+    for _ in range(100):
+        try:
+            while missing:
+                s3.create_bucket(Bucket=missing[0])
+                missing.pop(0)
+            break
+        except Exception:
+            time.sleep(0.2)
+    return proc, env, s3
+
+
 def main():
     binary, model_dir, gold, work = sys.argv[1:5]
     shutil.rmtree(work, ignore_errors=True)
     os.makedirs(work)
-    port = free_port()
-    server = subprocess.Popen(["moto_server", "-H", "127.0.0.1", "-p", str(port)],
-                              stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    env = dict(os.environ, AWS_ENDPOINT_URL=f"http://127.0.0.1:{port}", AWS_ACCESS_KEY_ID="test",
-               AWS_SECRET_ACCESS_KEY="test", AWS_DEFAULT_REGION="us-east-1")
+    server, env, s3 = start_moto(["models"])
     checks = Checks()
     try:
-        s3 = boto3.client("s3", endpoint_url=env["AWS_ENDPOINT_URL"], aws_access_key_id="test",
-                          aws_secret_access_key="test", region_name="us-east-1")
-        for _ in range(50):
-            try:
-                s3.create_bucket(Bucket="models")
-                break
-            except Exception:
-                time.sleep(0.2)
         url = "s3://models/fleet"
 
         def store(*args, environment=env, timeout=120):
