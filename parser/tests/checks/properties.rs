@@ -127,3 +127,25 @@ fn marginals_equal_finite_difference_derivatives_of_the_log_partition() {
         }
     }
 }
+
+/// The fast Eisner decoder fills narrow spans and wide spans in two phases with different
+/// layouts; at every length around and past the boundary it must return the reference's tree
+/// (same tie rule: smallest split point), on continuous scores and on tie-heavy integer scores.
+#[test]
+fn eisner_matches_reference_across_its_two_phases() {
+    use crate::integer_scores;
+    let lengths = (1..=12).chain(40..=60).chain([64, 95, 96, 97, 128, 130, 200]);
+    for n in lengths {
+        for root in ROOTS {
+            for (kind, scores) in [
+                ("random", random_scores(n, 1.0, n as u64)),
+                ("integer", integer_scores(n, 7 + n as u64)),
+            ] {
+                let fast = decode::decode(&scores, Algorithm::Projective, root);
+                let slow = reference::eisner(&scores, root);
+                assert_eq!(fast.heads, slow, "n={n} {root:?} {kind}");
+                assert_eq!(fast.score, scores.tree_score(&slow), "n={n} {root:?} {kind}");
+            }
+        }
+    }
+}
