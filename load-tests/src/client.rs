@@ -193,12 +193,27 @@ impl Client {
                                 let mut stream = response.into_inner();
                                 let mut version = String::new();
                                 let mut received = 0;
+                                // A failed message is answered in the stream: the request counts
+                                // as shed (or failed) once every reply is in.
+                                let mut failed = None;
                                 loop {
                                     match stream.message().await {
                                         Ok(Some(reply)) => {
                                             received += 1;
-                                            version =
-                                                reply.model.map(|m| m.version).unwrap_or_default();
+                                            match reply.error {
+                                                Some(e) => {
+                                                    failed.get_or_insert(tonic::Status::new(
+                                                        tonic::Code::from_i32(e.code),
+                                                        e.message,
+                                                    ));
+                                                }
+                                                None => {
+                                                    version = reply
+                                                        .model
+                                                        .map(|m| m.version)
+                                                        .unwrap_or_default()
+                                                }
+                                            }
                                         }
                                         Ok(None) => break,
                                         Err(status) => return Ok(classify(status)),
@@ -208,6 +223,9 @@ impl Client {
                                     return Ok(Outcome::Error(format!(
                                         "stream answered {received} of {expected}"
                                     )));
+                                }
+                                if let Some(status) = failed {
+                                    return Ok(classify(status));
                                 }
                                 Ok(version)
                             }

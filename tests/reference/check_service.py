@@ -143,6 +143,21 @@ def main():
         replies = list(stub.ParseStream(iter(requests)))
         checks.expect(sorted(r.id for r in replies) == ["0", "1", "2"], f"ParseStream ids {[r.id for r in replies]}")
         checks.expect(all(len(r.sentences[0].tokens) == int(r.id) + 2 for r in replies), "ParseStream sizes")
+        # A bad message in the middle of a stream is answered in the stream with its status
+        # (INVALID_ARGUMENT, as a unary Parse would end), and the messages after it are parsed.
+        mixed = [requests[0], pb.ParseRequest(model="turkish", id="bad", input=pb.SentenceInput(
+            tokens=pb.TokenList(tokens=["a", ""]))), pb.ParseRequest(model="nosuchmodel", id="unknown", input=requests[1].input),
+            requests[2]]
+        replies = {r.id: r for r in stub.ParseStream(iter(mixed))}
+        checks.expect(sorted(replies) == ["0", "2", "bad", "unknown"], f"ParseStream with bad messages: ids {sorted(replies)}")
+        bad = replies.get("bad")
+        checks.expect(bad is not None and bad.HasField("error") and bad.error.code == grpc.StatusCode.INVALID_ARGUMENT.value[0]
+                      and "token 1 is empty" in bad.error.message and not bad.sentences, f"in-stream error: {bad}")
+        unknown = replies.get("unknown")
+        checks.expect(unknown is not None and unknown.error.code == grpc.StatusCode.NOT_FOUND.value[0],
+                      f"in-stream unknown model: {unknown}")
+        checks.expect(all(not replies[i].HasField("error") and len(replies[i].sentences[0].tokens) == int(i) + 2
+                          for i in ("0", "2") if i in replies), "messages around the bad ones parsed")
         try:
             stub.Parse(pb.ParseRequest(model="turkish", input=pb.SentenceInput(tokens=pb.TokenList(tokens=["a", ""]))))
             checks.expect(False, "empty token accepted over gRPC")

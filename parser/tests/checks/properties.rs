@@ -134,7 +134,9 @@ fn marginals_equal_finite_difference_derivatives_of_the_log_partition() {
 #[test]
 fn eisner_matches_reference_across_its_two_phases() {
     use crate::integer_scores;
-    let lengths = (1..=12).chain(40..=60).chain([64, 95, 96, 97, 128, 130, 200]);
+    let lengths = (1..=12)
+        .chain(40..=60)
+        .chain([64, 95, 96, 97, 128, 130, 200]);
     for n in lengths {
         for root in ROOTS {
             for (kind, scores) in [
@@ -144,7 +146,11 @@ fn eisner_matches_reference_across_its_two_phases() {
                 let fast = decode::decode(&scores, Algorithm::Projective, root);
                 let slow = reference::eisner(&scores, root);
                 assert_eq!(fast.heads, slow, "n={n} {root:?} {kind}");
-                assert_eq!(fast.score, scores.tree_score(&slow), "n={n} {root:?} {kind}");
+                assert_eq!(
+                    fast.score,
+                    scores.tree_score(&slow),
+                    "n={n} {root:?} {kind}"
+                );
             }
         }
     }

@@ -151,7 +151,21 @@ async fn parse_one_inner(
         model: Some(model_ref(&outcome)),
         sentences,
         id: message.id,
+        error: None,
     })
+}
+
+/// The in-stream answer to a message that failed with `status`.
+fn message_error(id: String, status: Status) -> proto::ParseResponse {
+    proto::ParseResponse {
+        model: None,
+        sentences: Vec::new(),
+        id,
+        error: Some(proto::MessageError {
+            code: status.code() as i32,
+            message: status.message().to_string(),
+        }),
+    }
 }
 
 type ResponseStream = Pin<Box<dyn Stream<Item = Result<proto::ParseResponse, Status>> + Send>>;
@@ -213,13 +227,19 @@ impl Parser for ParserService {
         tokio::spawn(async move {
             while let Some(message) = incoming.next().await {
                 let reply = match message {
-                    Ok(message) => parse_one(&state, message, deadline, "parse_stream")
-                        .await
-                        .map_err(Status::from),
+                    // A message that fails (shed, invalid, unknown model) is answered in the
+                    // stream, so one busy moment or one bad sentence does not end a long stream.
+                    Ok(message) => {
+                        let id = message.id.clone();
+                        match parse_one(&state, message, deadline, "parse_stream").await {
+                            Ok(reply) => Ok(reply),
+                            Err(error) => Ok(message_error(id, Status::from(error))),
+                        }
+                    }
                     Err(status) => Err(status),
                 };
-                let failed = reply.is_err();
-                if sender.send(reply).await.is_err() || failed {
+                let broken = reply.is_err();
+                if sender.send(reply).await.is_err() || broken {
                     break;
                 }
             }
