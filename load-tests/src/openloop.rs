@@ -63,12 +63,18 @@ pub struct RunResult {
     /// Latency of accepted (non-shed) requests by power-of-two length bucket of the longest
     /// sentence in the request.
     pub by_bucket: BTreeMap<usize, Latency>,
+    /// How late the generator itself was: from each request's scheduled time to the moment its
+    /// task began sending. It is part of every latency above; reported so that the generator's
+    /// own delays (it shares the machine) can be told apart from the server's.
+    #[serde(default)]
+    pub send_lag: Latency,
     pub versions: BTreeMap<String, u64>,
     pub first_errors: Vec<String>,
 }
 
 struct Tally {
     all: Histogram<u64>,
+    lag: Histogram<u64>,
     buckets: BTreeMap<usize, Histogram<u64>>,
     result: RunResult,
 }
@@ -81,6 +87,7 @@ fn histogram() -> Histogram<u64> {
 pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunResult {
     let tally = Arc::new(Mutex::new(Tally {
         all: histogram(),
+        lag: histogram(),
         buckets: BTreeMap::new(),
         result: RunResult::default(),
     }));
@@ -133,10 +140,12 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
         sent += 1;
         let (client, tally) = (client.clone(), tally.clone());
         tasks.push(tokio::spawn(async move {
+            let lag = scheduled.elapsed().as_micros().clamp(1, 600_000_000) as u64;
             let outcome = client.send(&request).await;
             let micros = scheduled.elapsed().as_micros().clamp(1, 600_000_000) as u64;
             let longest = request.iter().map(Vec::len).max().unwrap_or(1);
             let mut t = tally.lock().expect("tally lock");
+            let _ = t.lag.record(lag);
             match outcome {
                 Outcome::Ok(version) => {
                     t.result.ok += 1;
@@ -172,6 +181,7 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
     result.client_overloaded = skipped;
     result.sentences_per_second /= seconds.max(1e-9);
     result.latency = Latency::from(&t.all);
+    result.send_lag = Latency::from(&t.lag);
     result.by_bucket = t
         .buckets
         .iter()
