@@ -6,7 +6,7 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use futures::Stream;
-use tokio_stream::StreamExt;
+use futures::StreamExt;
 use tonic::{Request, Response, Status, Streaming};
 
 use super::AppState;
@@ -155,6 +155,9 @@ async fn parse_one_inner(
     })
 }
 
+/// Messages of one ParseStream call parsed at the same time, at most.
+const STREAM_CONCURRENCY: usize = 8;
+
 /// The in-stream answer to a message that failed with `status`.
 fn message_error(id: String, status: Status) -> proto::ParseResponse {
     proto::ParseResponse {
@@ -221,23 +224,34 @@ impl Parser for ParserService {
         request: Request<Streaming<proto::ParseRequest>>,
     ) -> Result<Response<ResponseStream>, Status> {
         let deadline = deadline(&self.state, &request);
-        let mut incoming = request.into_inner();
+        let incoming = request.into_inner();
         let state = self.state.clone();
         let (sender, receiver) = tokio::sync::mpsc::channel(16);
         tokio::spawn(async move {
-            while let Some(message) = incoming.next().await {
-                let reply = match message {
-                    // A message that fails (shed, invalid, unknown model) is answered in the
-                    // stream, so one busy moment or one bad sentence does not end a long stream.
-                    Ok(message) => {
-                        let id = message.id.clone();
-                        match parse_one(&state, message, deadline, "parse_stream").await {
-                            Ok(reply) => Ok(reply),
-                            Err(error) => Ok(message_error(id, Status::from(error))),
+            // Up to STREAM_CONCURRENCY messages of the stream are parsed at once (each still
+            // admitted or shed by the engine like any request); replies go out as they finish.
+            let replies = incoming
+                .map(move |message| {
+                    let state = state.clone();
+                    async move {
+                        match message {
+                            // A message that fails (shed, invalid, unknown model) is answered in
+                            // the stream, so one busy moment or one bad sentence does not end a
+                            // long stream.
+                            Ok(message) => {
+                                let id = message.id.clone();
+                                match parse_one(&state, message, deadline, "parse_stream").await {
+                                    Ok(reply) => Ok(reply),
+                                    Err(error) => Ok(message_error(id, Status::from(error))),
+                                }
+                            }
+                            Err(status) => Err(status),
                         }
                     }
-                    Err(status) => Err(status),
-                };
+                })
+                .buffer_unordered(STREAM_CONCURRENCY);
+            let mut replies = std::pin::pin!(replies);
+            while let Some(reply) = replies.next().await {
                 let broken = reply.is_err();
                 if sender.send(reply).await.is_err() || broken {
                     break;

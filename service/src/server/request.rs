@@ -397,7 +397,12 @@ fn parse_sentence(
         Some(tags) => tags.clone(),
         None => model.tagger.tag(&work.forms),
     };
-    let morph = model.morph_tagger.as_ref().map(|m| m.tag(&work.forms));
+    // Same rule as `Model::parse`: morphology is tagged only for a model whose features use it.
+    let morph = model
+        .morph_tagger
+        .as_ref()
+        .filter(|_| model.features.morphology)
+        .map(|m| m.tag(&work.forms));
     observe("tag", t.elapsed().as_secs_f64());
     let t = Instant::now();
     let features = model.sentence_features(&work.forms, &tags, morph.as_deref().unwrap_or(&[]));
