@@ -137,33 +137,67 @@ impl<'a> Charts<'a> {
 
     /// `CR[s][t]`, from whichever phase computed it.
     fn complete_right(&self, s: usize, t: usize) -> f64 {
-        match t - s {
-            w if w < NARROW => self.narrow.complete_right_by_start[w * self.narrow.row + s],
-            _ => self.complete_right[s * self.side + t],
-        }
+        let n = &self.narrow;
+        self.span(
+            s,
+            t,
+            (n.complete_right_by_start, s),
+            self.complete_right,
+            false,
+        )
     }
 
     /// `CL[s][t]`, from whichever phase computed it.
     fn complete_left(&self, s: usize, t: usize) -> f64 {
-        match t - s {
-            w if w < NARROW => self.narrow.complete_left_by_start[w * self.narrow.row + s],
-            _ => self.complete_left[s * self.side + t],
-        }
+        let n = &self.narrow;
+        self.span(
+            s,
+            t,
+            (n.complete_left_by_start, s),
+            self.complete_left,
+            false,
+        )
     }
 
     /// `IR[s][t]`, from whichever phase computed it.
     fn incomplete_right(&self, s: usize, t: usize) -> f64 {
-        match t - s {
-            w if w < NARROW => self.narrow.incomplete_right_by_start[w * self.narrow.row + s],
-            _ => self.incomplete_right[s * self.side + t],
-        }
+        let n = &self.narrow;
+        self.span(
+            s,
+            t,
+            (n.incomplete_right_by_start, s),
+            self.incomplete_right,
+            false,
+        )
     }
 
     /// `IL[s][t]`, from whichever phase computed it.
     fn incomplete_left(&self, s: usize, t: usize) -> f64 {
+        let n = &self.narrow;
+        self.span(
+            s,
+            t,
+            (n.incomplete_left_by_end, t),
+            self.incomplete_left_t,
+            true,
+        )
+    }
+
+    /// Span `[s, t]`: a narrow span from its narrow table (`column`: its start or its end), a
+    /// wide one from its chart (row-major, or `transposed`).
+    #[inline(always)]
+    fn span(
+        &self,
+        s: usize,
+        t: usize,
+        (narrow, column): (&[f64], usize),
+        wide: &[f64],
+        transposed: bool,
+    ) -> f64 {
         match t - s {
-            w if w < NARROW => self.narrow.incomplete_left_by_end[w * self.narrow.row + t],
-            _ => self.incomplete_left_t[t * self.side + s],
+            w if w < NARROW => narrow[w * self.narrow.row + column],
+            _ if transposed => wide[t * self.side + s],
+            _ => wide[s * self.side + t],
         }
     }
 }
