@@ -20,6 +20,19 @@ use clap::{Args, Parser, Subcommand};
 
 use client::{Api, Client};
 use openloop::Plan;
+use workload::Sentence;
+
+/// One step-up scenario: an API, its workload and the rates to climb.
+struct Ladder<'a> {
+    api: Api,
+    name: String,
+    /// Sentences per request.
+    batch: usize,
+    rates: Vec<f64>,
+    sentences: &'a [Sentence],
+    /// The model to ask for (the server's default when `None`).
+    model: Option<String>,
+}
 
 #[derive(Debug, Parser)]
 #[command(
@@ -272,13 +285,17 @@ async fn main() -> anyhow::Result<()> {
                     }
                 }
             }
-            if let Some(path) = &conllu {
-                let sentences = workload::conllu_file(path)?;
+            // The real test sentences, for a steady run and a step-up with their own model.
+            let real = match &conllu {
+                Some(path) => Some(workload::conllu_file(path)?),
+                None => None,
+            };
+            if let (Some(path), Some(sentences)) = (&conllu, &real) {
                 let mut client =
                     Client::connect(Api::GrpcParse, &target.http, &target.grpc, None, false)
                         .await?;
                 client.set_model(conllu_model.clone());
-                let r = openloop::run(&client, &sentences, &plan(50.0, seconds, 1)).await;
+                let r = openloop::run(&client, sentences, &plan(50.0, seconds, 1)).await;
                 generated += r.sent;
                 suite.steady.insert(
                     format!("grpc-parse, {}", path.rsplit('/').next().unwrap_or(path)),
@@ -293,7 +310,7 @@ async fn main() -> anyhow::Result<()> {
             // Step-up until the p99 budget breaks (or shedding / errors / client saturation), for
             // unary gRPC (the reference knee), unary HTTP and gRPC batches of 32.
             let full_rates = vec![100.0, 200.0, 400.0, 800.0, 1200.0, 1600.0, 2400.0, 3200.0];
-            for (api, name, batch, rates) in [
+            let ladders = [
                 (
                     Api::GrpcParse,
                     "grpc-parse",
@@ -348,8 +365,52 @@ async fn main() -> anyhow::Result<()> {
                         ]
                     },
                 ),
-            ] {
-                let client = Client::connect(api, &target.http, &target.grpc, None, false).await?;
+            ];
+            let mut ladders: Vec<Ladder> = ladders
+                .into_iter()
+                .map(|(api, name, batch, rates)| Ladder {
+                    api,
+                    name: name.to_string(),
+                    batch,
+                    rates,
+                    sentences: &medium,
+                    model: None,
+                })
+                .collect();
+            // The real test sentences with their model: the knee a replica reaches on text of
+            // the treebank's own length mix.
+            if let (Some(path), Some(sentences)) = (&conllu, &real) {
+                let mut rates = if quick {
+                    vec![50.0, 200.0]
+                } else {
+                    full_rates.clone()
+                };
+                if !quick {
+                    rates.extend([4000.0, 4800.0]);
+                }
+                ladders.push(Ladder {
+                    api: Api::GrpcParse,
+                    name: format!("grpc-parse, {}", path.rsplit('/').next().unwrap_or(path)),
+                    batch: 1,
+                    rates,
+                    sentences,
+                    model: conllu_model.clone(),
+                });
+            }
+            for Ladder {
+                api,
+                name,
+                batch,
+                rates,
+                sentences,
+                model: ladder_model,
+            } in ladders
+            {
+                let mut client =
+                    Client::connect(api, &target.http, &target.grpc, None, false).await?;
+                client.set_model(ladder_model);
+                // The reference knee: unary gRPC on the 25-word demo sentences.
+                let reference = name == "grpc-parse";
                 // Up the ladder until a step fails; then (full runs) halve the gap between the
                 // last good and the first failing rate twice, so the knee is known to within a
                 // quarter of the last step rather than a whole step.
@@ -359,7 +420,7 @@ async fn main() -> anyhow::Result<()> {
                 let mut refinements = if quick { 0 } else { 2 };
                 let mut runs = Vec::new();
                 while let Some(rate) = queue.pop_front() {
-                    let r = openloop::run(&client, &medium, &plan(rate, seconds, batch)).await;
+                    let r = openloop::run(&client, sentences, &plan(rate, seconds, batch)).await;
                     // The server counts each message of a stream as one request.
                     generated += if api == Api::GrpcStream {
                         r.sent * batch as u64
@@ -389,19 +450,15 @@ async fn main() -> anyhow::Result<()> {
                 }
                 runs.sort_by(|a, b| a.offered_rate.total_cmp(&b.offered_rate));
                 if let Some(good) = last_good {
-                    suite.knees.insert(name.to_string(), good * batch as f64);
-                    if api == Api::GrpcParse {
+                    suite.knees.insert(name.clone(), good * batch as f64);
+                    if reference {
                         suite.knee_rate = Some(good);
                     }
                 }
-                if api == Api::GrpcParse {
+                if reference {
                     suite.step_up.extend(runs);
                 } else {
-                    suite
-                        .step_up_other
-                        .entry(name.to_string())
-                        .or_default()
-                        .extend(runs);
+                    suite.step_up_other.entry(name).or_default().extend(runs);
                 }
             }
             let grpc =
