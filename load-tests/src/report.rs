@@ -159,7 +159,7 @@ pub fn markdown(s: &Suite) -> String {
             .collect();
         let _ = writeln!(
             out,
-            "\nSentences/s at the knee (25-word sentences; a batch's budget scales with its size): {}",
+            "\nSentences/s at the knee (25-word demo sentences unless a file is named; a batch's budget scales with its size): {}",
             knees.join(", ")
         );
     }
