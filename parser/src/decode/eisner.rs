@@ -247,12 +247,16 @@ pub fn best_score(scores: &ScoreMatrix, root: RootConstraint) -> f64 {
 
 fn fill(charts: &mut Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) {
     let side = scores.side();
-    for s in 0..side {
-        let diagonal = s * side + s;
-        charts.complete_right[diagonal] = 0.0;
-        charts.complete_right_t[diagonal] = 0.0;
-        charts.complete_left[diagonal] = 0.0;
-        charts.complete_left_t[diagonal] = 0.0;
+    // The one-position spans of the row charts, read only by the wide phase (a short sentence
+    // touches none of that memory).
+    if side > NARROW {
+        for s in 0..side {
+            let diagonal = s * side + s;
+            charts.complete_right[diagonal] = 0.0;
+            charts.complete_right_t[diagonal] = 0.0;
+            charts.complete_left[diagonal] = 0.0;
+            charts.complete_left_t[diagonal] = 0.0;
+        }
     }
     #[cfg(target_arch = "x86_64")]
     if has_avx2() {
