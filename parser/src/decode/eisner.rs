@@ -135,71 +135,36 @@ impl<'a> Charts<'a> {
         }
     }
 
-    /// `CR[s][t]`, from whichever phase computed it.
-    fn complete_right(&self, s: usize, t: usize) -> f64 {
+    /// Span `[s, t]` of `chart`, from whichever phase computed it: a narrow span from its
+    /// narrow table, a wide one from its row chart (`IL` is kept transposed).
+    fn value(&self, chart: Chart, s: usize, t: usize) -> f64 {
+        let w = t - s;
         let n = &self.narrow;
-        self.span(
-            s,
-            t,
-            (n.complete_right_by_start, s),
-            self.complete_right,
-            false,
-        )
-    }
-
-    /// `CL[s][t]`, from whichever phase computed it.
-    fn complete_left(&self, s: usize, t: usize) -> f64 {
-        let n = &self.narrow;
-        self.span(
-            s,
-            t,
-            (n.complete_left_by_start, s),
-            self.complete_left,
-            false,
-        )
-    }
-
-    /// `IR[s][t]`, from whichever phase computed it.
-    fn incomplete_right(&self, s: usize, t: usize) -> f64 {
-        let n = &self.narrow;
-        self.span(
-            s,
-            t,
-            (n.incomplete_right_by_start, s),
-            self.incomplete_right,
-            false,
-        )
-    }
-
-    /// `IL[s][t]`, from whichever phase computed it.
-    fn incomplete_left(&self, s: usize, t: usize) -> f64 {
-        let n = &self.narrow;
-        self.span(
-            s,
-            t,
-            (n.incomplete_left_by_end, t),
-            self.incomplete_left_t,
-            true,
-        )
-    }
-
-    /// Span `[s, t]`: a narrow span from its narrow table (`column`: its start or its end), a
-    /// wide one from its chart (row-major, or `transposed`).
-    #[inline(always)]
-    fn span(
-        &self,
-        s: usize,
-        t: usize,
-        (narrow, column): (&[f64], usize),
-        wide: &[f64],
-        transposed: bool,
-    ) -> f64 {
-        match t - s {
-            w if w < NARROW => narrow[w * self.narrow.row + column],
-            _ if transposed => wide[t * self.side + s],
-            _ => wide[s * self.side + t],
+        if w < NARROW {
+            let (table, column) = match chart {
+                Chart::CompleteRight => (&n.complete_right_by_start, s),
+                Chart::CompleteLeft => (&n.complete_left_by_start, s),
+                Chart::IncompleteRight => (&n.incomplete_right_by_start, s),
+                Chart::IncompleteLeft => (&n.incomplete_left_by_end, t),
+            };
+            return table[w * n.row + column];
+        }
+        match chart {
+            Chart::CompleteRight => self.complete_right[s * self.side + t],
+            Chart::CompleteLeft => self.complete_left[s * self.side + t],
+            Chart::IncompleteRight => self.incomplete_right[s * self.side + t],
+            Chart::IncompleteLeft => self.incomplete_left_t[t * self.side + s],
         }
     }
+}
+
+/// The four charts, for the back-trace's reads.
+#[derive(Clone, Copy)]
+enum Chart {
+    CompleteRight,
+    CompleteLeft,
+    IncompleteRight,
+    IncompleteLeft,
 }
 
 thread_local! {
@@ -504,7 +469,8 @@ fn backtrace(charts: &Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) ->
                     continue;
                 }
                 let r = first_best(s + 1..t + 1, |r| {
-                    charts.incomplete_right(s, r) + charts.complete_right(r, t)
+                    charts.value(Chart::IncompleteRight, s, r)
+                        + charts.value(Chart::CompleteRight, r, t)
                 });
                 stack.push(Span::IncompleteRight(s, r));
                 stack.push(Span::CompleteRight(r, t));
@@ -514,7 +480,8 @@ fn backtrace(charts: &Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) ->
                     continue;
                 }
                 let r = first_best(s..t, |r| {
-                    charts.complete_left(s, r) + charts.incomplete_left(r, t)
+                    charts.value(Chart::CompleteLeft, s, r)
+                        + charts.value(Chart::IncompleteLeft, r, t)
                 });
                 stack.push(Span::CompleteLeft(s, r));
                 stack.push(Span::IncompleteLeft(r, t));
@@ -528,7 +495,8 @@ fn backtrace(charts: &Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) ->
                     0
                 } else {
                     first_best(s..t, |r| {
-                        charts.complete_right(s, r) + charts.complete_left(r + 1, t)
+                        charts.value(Chart::CompleteRight, s, r)
+                            + charts.value(Chart::CompleteLeft, r + 1, t)
                     })
                 };
                 stack.push(Span::CompleteRight(s, r));
