@@ -22,6 +22,15 @@ use client::{Api, Client};
 use openloop::Plan;
 use workload::Sentence;
 
+/// Requests the server counts for `sent` generator requests: one per message of a stream.
+fn server_requests_for(api: Api, batch: usize, sent: u64) -> u64 {
+    if api == Api::GrpcStream {
+        sent * batch as u64
+    } else {
+        sent
+    }
+}
+
 /// One step-up scenario: an API, its workload and the rates to climb.
 struct Ladder<'a> {
     api: Api,
@@ -245,12 +254,7 @@ async fn main() -> anyhow::Result<()> {
             ] {
                 let client = Client::connect(api, &target.http, &target.grpc, None, false).await?;
                 let r = openloop::run(&client, &medium, &plan(rate, seconds, batch)).await;
-                // The server counts each message of a stream as one request.
-                generated += if api == Api::GrpcStream {
-                    r.sent * batch as u64
-                } else {
-                    r.sent
-                };
+                generated += server_requests_for(api, batch, r.sent);
                 suite.steady.insert(name.to_string(), r);
             }
             // Latency by length, projective decoding; then the same lengths non-projective with
@@ -287,20 +291,20 @@ async fn main() -> anyhow::Result<()> {
             }
             // The real test sentences, for a steady run and a step-up with their own model.
             let real = match &conllu {
-                Some(path) => Some(workload::conllu_file(path)?),
+                Some(path) => Some((
+                    format!("grpc-parse, {}", path.rsplit('/').next().unwrap_or(path)),
+                    workload::conllu_file(path)?,
+                )),
                 None => None,
             };
-            if let (Some(path), Some(sentences)) = (&conllu, &real) {
+            if let Some((name, sentences)) = &real {
                 let mut client =
                     Client::connect(Api::GrpcParse, &target.http, &target.grpc, None, false)
                         .await?;
                 client.set_model(conllu_model.clone());
                 let r = openloop::run(&client, sentences, &plan(50.0, seconds, 1)).await;
                 generated += r.sent;
-                suite.steady.insert(
-                    format!("grpc-parse, {}", path.rsplit('/').next().unwrap_or(path)),
-                    r,
-                );
+                suite.steady.insert(name.clone(), r);
             }
             suite.scaling = reqwest::get(format!("{}/v1/scaling", target.http))
                 .await?
@@ -308,7 +312,8 @@ async fn main() -> anyhow::Result<()> {
                 .await
                 .unwrap_or_default();
             // Step-up until the p99 budget breaks (or shedding / errors / client saturation), for
-            // unary gRPC (the reference knee), unary HTTP and gRPC batches of 32.
+            // unary gRPC (the reference knee), unary HTTP, gRPC and HTTP batches of 32, gRPC
+            // streams of 8 and, given a CoNLL-U file, unary gRPC on its sentences.
             let full_rates = vec![100.0, 200.0, 400.0, 800.0, 1200.0, 1600.0, 2400.0, 3200.0];
             let ladders = [
                 (
@@ -379,20 +384,16 @@ async fn main() -> anyhow::Result<()> {
                 .collect();
             // The real test sentences with their model: the knee a replica reaches on text of
             // the treebank's own length mix.
-            if let (Some(path), Some(sentences)) = (&conllu, &real) {
-                let mut rates = if quick {
-                    vec![50.0, 200.0]
-                } else {
-                    full_rates.clone()
-                };
-                if !quick {
-                    rates.extend([4000.0, 4800.0]);
-                }
+            if let Some((name, sentences)) = &real {
                 ladders.push(Ladder {
                     api: Api::GrpcParse,
-                    name: format!("grpc-parse, {}", path.rsplit('/').next().unwrap_or(path)),
+                    name: name.clone(),
                     batch: 1,
-                    rates,
+                    rates: if quick {
+                        vec![50.0, 200.0]
+                    } else {
+                        [&full_rates[..], &[4000.0, 4800.0]].concat()
+                    },
                     sentences,
                     model: conllu_model.clone(),
                 });
@@ -421,12 +422,7 @@ async fn main() -> anyhow::Result<()> {
                 let mut runs = Vec::new();
                 while let Some(rate) = queue.pop_front() {
                     let r = openloop::run(&client, sentences, &plan(rate, seconds, batch)).await;
-                    // The server counts each message of a stream as one request.
-                    generated += if api == Api::GrpcStream {
-                        r.sent * batch as u64
-                    } else {
-                        r.sent
-                    };
+                    generated += server_requests_for(api, batch, r.sent);
                     let within = r.latency.p99_ms <= budget_ms * batch as f64
                         && r.errors == 0
                         && r.shed == 0

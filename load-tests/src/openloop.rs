@@ -83,6 +83,11 @@ fn histogram() -> Histogram<u64> {
     Histogram::new_with_bounds(1, 600_000_000, 3).expect("valid histogram bounds")
 }
 
+/// Microseconds since `instant`, within the histograms' bounds.
+fn micros_since(instant: Instant) -> u64 {
+    instant.elapsed().as_micros().clamp(1, 600_000_000) as u64
+}
+
 /// Runs the plan against `client`, cycling through `sentences`.
 pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunResult {
     let tally = Arc::new(Mutex::new(Tally {
@@ -140,9 +145,9 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
         sent += 1;
         let (client, tally) = (client.clone(), tally.clone());
         tasks.push(tokio::spawn(async move {
-            let lag = scheduled.elapsed().as_micros().clamp(1, 600_000_000) as u64;
+            let lag = micros_since(scheduled);
             let outcome = client.send(&request).await;
-            let micros = scheduled.elapsed().as_micros().clamp(1, 600_000_000) as u64;
+            let micros = micros_since(scheduled);
             let longest = request.iter().map(Vec::len).max().unwrap_or(1);
             let mut t = tally.lock().expect("tally lock");
             let _ = t.lag.record(lag);
