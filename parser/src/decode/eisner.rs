@@ -15,7 +15,10 @@
 //! split's offset `k = r − s`, every recurrence's left operand is a span starting at `s` and its
 //! right operand a span ending at `t`, so the narrow spans are also kept in tables indexed by
 //! (width, start) and (width, end), where a block's operands are contiguous runs of `LANES`
-//! doubles and its maxima stay in vector registers: no reduction and no set-up per span. Blocks
+//! doubles and its maxima stay in vector registers: no reduction and no set-up per span. A span
+//! ending at `t` with width `j` starts at `t − j`, so one table by start serves both operands:
+//! the right operands of a block are the run starting at column `first + w − j` of row `j`,
+//! contiguous across the block's lanes too. Blocks
 //! go from the last start to the first and, within a block, widths upwards: a span needs only
 //! narrower spans starting at or after its start. The rows a block reads stay in the first-level
 //! cache while its widths grow — which is also why the phase stops at [`NARROW`]: beyond it they
@@ -66,22 +69,21 @@ pub(crate) struct Charts<'a> {
     narrow: NarrowTables<'a>,
 }
 
-/// The narrow spans by (width, start) and by (width, end): row `w` holds the spans of width
-/// `w`, rows padded by [`LANES`] columns for the lanes past the sentence's end.
+/// The narrow spans by (width, start): cell `w * row + s` holds span `[s, s + w]`. Rows are
+/// padded by [`LANES`] columns for the lanes past the sentence's end; what those lanes compute
+/// is never read by a lane inside the sentence.
 #[derive(Debug)]
 struct NarrowTables<'a> {
     /// Length of a row: `side + LANES`.
     row: usize,
-    complete_right_by_start: &'a mut [f64],
-    complete_right_by_end: &'a mut [f64],
-    complete_left_by_start: &'a mut [f64],
-    complete_left_by_end: &'a mut [f64],
-    incomplete_right_by_start: &'a mut [f64],
-    incomplete_left_by_end: &'a mut [f64],
-    /// `score(s, t)` of the narrow spans by start, −∞ past the end.
-    right_arc_by_start: &'a mut [f64],
-    /// `score(t, s)` of the narrow spans by end, −∞ past the end.
-    left_arc_by_end: &'a mut [f64],
+    complete_right: &'a mut [f64],
+    complete_left: &'a mut [f64],
+    incomplete_right: &'a mut [f64],
+    incomplete_left: &'a mut [f64],
+    /// `score(s, s + w)`: the arc of `IR[s][s + w]`.
+    right_arc: &'a mut [f64],
+    /// `score(s + w, s)`: the arc of `IL[s][s + w]`.
+    left_arc: &'a mut [f64],
 }
 
 /// Doubles of one narrow table for `side` positions.
@@ -91,7 +93,7 @@ fn narrow_len(side: usize) -> usize {
 
 /// Doubles of chart memory for `side` positions.
 fn buffer_len(side: usize) -> usize {
-    6 * side * side + 8 * narrow_len(side)
+    6 * side * side + 6 * narrow_len(side)
 }
 
 impl<'a> Charts<'a> {
@@ -105,14 +107,12 @@ impl<'a> Charts<'a> {
         let (incomplete_right, rest) = rest.split_at_mut(size);
         let (incomplete_left_t, rest) = rest.split_at_mut(size);
         let narrow = narrow_len(side);
-        let (complete_right_by_start, rest) = rest.split_at_mut(narrow);
-        let (complete_right_by_end, rest) = rest.split_at_mut(narrow);
-        let (complete_left_by_start, rest) = rest.split_at_mut(narrow);
-        let (complete_left_by_end, rest) = rest.split_at_mut(narrow);
-        let (incomplete_right_by_start, rest) = rest.split_at_mut(narrow);
-        let (incomplete_left_by_end, rest) = rest.split_at_mut(narrow);
-        let (right_arc_by_start, rest) = rest.split_at_mut(narrow);
-        let left_arc_by_end = &mut rest[..narrow];
+        let (narrow_complete_right, rest) = rest.split_at_mut(narrow);
+        let (narrow_complete_left, rest) = rest.split_at_mut(narrow);
+        let (narrow_incomplete_right, rest) = rest.split_at_mut(narrow);
+        let (narrow_incomplete_left, rest) = rest.split_at_mut(narrow);
+        let (right_arc, rest) = rest.split_at_mut(narrow);
+        let left_arc = &mut rest[..narrow];
         Charts {
             side,
             complete_right,
@@ -123,14 +123,12 @@ impl<'a> Charts<'a> {
             incomplete_left_t,
             narrow: NarrowTables {
                 row: side + LANES,
-                complete_right_by_start,
-                complete_right_by_end,
-                complete_left_by_start,
-                complete_left_by_end,
-                incomplete_right_by_start,
-                incomplete_left_by_end,
-                right_arc_by_start,
-                left_arc_by_end,
+                complete_right: narrow_complete_right,
+                complete_left: narrow_complete_left,
+                incomplete_right: narrow_incomplete_right,
+                incomplete_left: narrow_incomplete_left,
+                right_arc,
+                left_arc,
             },
         }
     }
@@ -139,21 +137,25 @@ impl<'a> Charts<'a> {
     /// narrow table, a wide one from its row chart (`IL` is kept transposed).
     fn value(&self, chart: Chart, s: usize, t: usize) -> f64 {
         let w = t - s;
-        let n = &self.narrow;
         if w < NARROW {
-            let (table, column) = match chart {
-                Chart::CompleteRight => (&n.complete_right_by_start, s),
-                Chart::CompleteLeft => (&n.complete_left_by_start, s),
-                Chart::IncompleteRight => (&n.incomplete_right_by_start, s),
-                Chart::IncompleteLeft => (&n.incomplete_left_by_end, t),
-            };
-            return table[w * n.row + column];
+            return self.narrow.table(chart)[w * self.narrow.row + s];
         }
         match chart {
             Chart::CompleteRight => self.complete_right[s * self.side + t],
             Chart::CompleteLeft => self.complete_left[s * self.side + t],
             Chart::IncompleteRight => self.incomplete_right[s * self.side + t],
             Chart::IncompleteLeft => self.incomplete_left_t[t * self.side + s],
+        }
+    }
+}
+
+impl NarrowTables<'_> {
+    fn table(&self, chart: Chart) -> &[f64] {
+        match chart {
+            Chart::CompleteRight => self.complete_right,
+            Chart::CompleteLeft => self.complete_left,
+            Chart::IncompleteRight => self.incomplete_right,
+            Chart::IncompleteLeft => self.incomplete_left,
         }
     }
 }
@@ -172,7 +174,7 @@ thread_local! {
     /// reads is written first (spans are built from narrower spans only), so a reused buffer
     /// needs no clearing: decoding a sentence costs no allocation, no zeroing and no page
     /// faults. The buffer keeps the size of the longest sentence seen: at most 6 × 513² doubles
-    /// and 8 × 48 × 521 for the narrow tables (14.2 MB) per parsing thread.
+    /// and 6 × 48 × 521 for the narrow tables (13.8 MB) per parsing thread.
     static CHART_MEMORY: std::cell::RefCell<Vec<f64>> = const { std::cell::RefCell::new(Vec::new()) };
 }
 
@@ -297,107 +299,136 @@ fn fill_inline(charts: &mut Charts<'_>, scores: &ScoreMatrix, root: RootConstrai
 }
 
 /// The first phase: every span narrower than [`NARROW`], in blocks of [`LANES`] starts, written
-/// to the narrow tables and to the charts.
+/// to the narrow tables and, for a sentence that also has wide spans, to the charts.
 #[inline(always)]
 fn fill_narrow(charts: &mut Charts<'_>, scores: &ScoreMatrix, single_root: bool) {
     let side = charts.side;
     let NarrowTables {
         row,
-        complete_right_by_start: cr_s,
-        complete_right_by_end: cr_e,
-        complete_left_by_start: cl_s,
-        complete_left_by_end: cl_e,
-        incomplete_right_by_start: ir_s,
-        incomplete_left_by_end: il_e,
-        right_arc_by_start: right_arc,
-        left_arc_by_end: left_arc,
+        complete_right: cr,
+        complete_left: cl,
+        incomplete_right: ir,
+        incomplete_left: il,
+        right_arc,
+        left_arc,
     } = &mut charts.narrow;
     let row = *row;
     // Width 0: the one-position spans (padding included).
-    for table in [&mut *cr_s, &mut *cr_e, &mut *cl_s, &mut *cl_e] {
-        table[..row].fill(0.0);
-    }
-    // The arc scores of each width in the tables' layout, so that a block adds them as vectors.
+    cr[..row].fill(0.0);
+    cl[..row].fill(0.0);
+    // The arc scores of each width in the tables' layout, so that a block adds them as vectors:
+    // score(s, s + w) and score(s + w, s) are the matrix's diagonals `w` above and below the main
+    // one (stride side + 1). Arcs into the root (s = 0 below) score −∞ already.
+    let flat = scores.as_slice();
     for w in 1..side.min(NARROW) {
-        let right_row = &mut right_arc[w * row..(w + 1) * row];
-        for (s, cell) in right_row[..side - w].iter_mut().enumerate() {
-            *cell = scores.get(s, s + w);
+        let count = side - w;
+        let (above, below) = (&flat[w..], &flat[w * side..]);
+        let rights = &mut right_arc[w * row..w * row + count];
+        let lefts = &mut left_arc[w * row..w * row + count];
+        for s in 0..count {
+            rights[s] = above[s * (side + 1)];
+            lefts[s] = below[s * (side + 1)];
         }
-        right_row[side - w..].fill(f64::NEG_INFINITY);
-        let left_row = &mut left_arc[w * row..(w + 1) * row];
-        for (t, cell) in left_row[w..side].iter_mut().enumerate() {
-            // Arcs into the root (t − w = 0) score −∞ already.
-            *cell = scores.get(t + w, t);
-        }
-        left_row[side..].fill(f64::NEG_INFINITY);
     }
     for first in (0..side).step_by(LANES).rev() {
         // Starts first..first + LANES, widths up to the last narrow one with a span at `first`.
         for w in 1..(side - first).min(NARROW) {
-            let (here, end) = (w * row + first, w * row + first + w);
+            let here = w * row + first;
 
-            // Incomplete spans: max over k in 0..w of CR[k][s] + CL[w−1−k][t].
-            let mut inner = block_max(
+            // Incomplete spans: max over k in 0..w of CR[s][s + k] + CL[s + k + 1][t].
+            let inner = block_max(
                 0..w,
-                cr_s,
+                cr,
                 |k| k * row + first,
-                cl_e,
-                |k| (w - 1 - k) * row + first + w,
+                cl,
+                |k| (w - 1 - k) * row + first + k + 1,
             );
+            *lanes_mut(ir, here) = lanes_add(&inner, lanes(right_arc, here));
+            *lanes_mut(il, here) = lanes_add(&inner, lanes(left_arc, here));
             if single_root && first == 0 {
-                // The root's one child: only the split r = 0 (CR[0][0] = 0).
-                inner[0] = cr_s[0] + cl_e[(w - 1) * row + w];
-            }
-            let arcs = &right_arc[here..here + LANES];
-            for ((cell, value), arc) in ir_s[here..here + LANES].iter_mut().zip(inner).zip(arcs) {
-                *cell = value + arc;
-            }
-            let arcs = &left_arc[end..end + LANES];
-            for ((cell, value), arc) in il_e[end..end + LANES].iter_mut().zip(inner).zip(arcs) {
-                *cell = value + arc;
+                // The root's one child: only the split r = 0 (CR[0][0] = 0). IL[0][t] would be
+                // an arc into the root, −∞ either way.
+                ir[here] = cr[0] + cl[(w - 1) * row + 1] + right_arc[here];
             }
 
-            // Complete right: max over k in 1..=w of IR[k][s] + CR[w−k][t].
+            // Complete right: max over k in 1..=w of IR[s][s + k] + CR[s + k][t].
             let right = block_max(
                 1..w + 1,
-                ir_s,
+                ir,
                 |k| k * row + first,
-                cr_e,
-                |k| (w - k) * row + first + w,
+                cr,
+                |k| (w - k) * row + first + k,
             );
-            cr_s[here..here + LANES].copy_from_slice(&right);
-            cr_e[end..end + LANES].copy_from_slice(&right);
+            *lanes_mut(cr, here) = right;
 
-            // Complete left: max over k in 0..w of CL[k][s] + IL[w−k][t].
+            // Complete left: max over k in 0..w of CL[s][s + k] + IL[s + k][t].
             let left = block_max(
                 0..w,
-                cl_s,
+                cl,
                 |k| k * row + first,
-                il_e,
-                |k| (w - k) * row + first + w,
+                il,
+                |k| (w - k) * row + first + k,
             );
-            cl_s[here..here + LANES].copy_from_slice(&left);
-            cl_e[end..end + LANES].copy_from_slice(&left);
+            *lanes_mut(cl, here) = left;
 
             // The same spans into the charts the second phase reads (a sentence with only narrow
             // spans has no second phase; the back-trace reads the narrow tables).
-            let valid = if side > NARROW {
-                LANES.min((side - w).saturating_sub(first))
-            } else {
-                0
-            };
-            for lane in 0..valid {
-                let (s, t) = (first + lane, first + lane + w);
-                let (forward, backward) = (s * side + t, t * side + s);
-                charts.incomplete_right[forward] = ir_s[here + lane];
-                charts.incomplete_left_t[backward] = il_e[end + lane];
-                charts.complete_right[forward] = right[lane];
-                charts.complete_right_t[backward] = right[lane];
-                charts.complete_left[forward] = left[lane];
-                charts.complete_left_t[backward] = left[lane];
+            if side > NARROW {
+                // Span (s, s + w) sits at s·side + s + w in a chart and at (s + w)·side + s in a
+                // transposed one: for the block's starts, runs with stride side + 1. Only what
+                // a wide span reads is copied: rows s that start a wide span
+                // (s < side − NARROW) and, transposed, ends t that end one (t ≥ NARROW).
+                let valid = LANES.min(side - w - first);
+                let rows = valid.min((side - NARROW).saturating_sub(first));
+                let ends = NARROW.saturating_sub(first + w).min(valid);
+                let (forward, backward) = (first * (side + 1) + w, (first + w) * side + first);
+                let step = side + 1;
+                let last = valid.saturating_sub(1);
+                // One check per block instead of one per cell (a per-cell check costs as much
+                // as the store); the six charts have the same length.
+                assert!(forward.max(backward) + last * step < charts.complete_right.len());
+                for lane in 0..valid {
+                    let (f, b) = (forward + lane * step, backward + lane * step);
+                    // SAFETY: lane ≤ last, so f and b are at most forward/backward + last·step,
+                    // in bounds of every chart (asserted above).
+                    #[allow(unsafe_code)] // bounds checked per block above
+                    unsafe {
+                        if lane < rows {
+                            *charts.incomplete_right.get_unchecked_mut(f) = ir[here + lane];
+                            *charts.complete_right.get_unchecked_mut(f) = right[lane];
+                            *charts.complete_left.get_unchecked_mut(f) = left[lane];
+                        }
+                        if lane >= ends {
+                            *charts.incomplete_left_t.get_unchecked_mut(b) = il[here + lane];
+                            *charts.complete_right_t.get_unchecked_mut(b) = right[lane];
+                            *charts.complete_left_t.get_unchecked_mut(b) = left[lane];
+                        }
+                    }
+                }
             }
         }
     }
+}
+
+/// The [`LANES`] cells of one block at `at`.
+#[inline(always)]
+fn lanes(table: &[f64], at: usize) -> &[f64; LANES] {
+    table[at..at + LANES]
+        .try_into()
+        .expect("a range of LANES cells")
+}
+
+/// The [`LANES`] cells of one block at `at`, to write.
+#[inline(always)]
+fn lanes_mut(table: &mut [f64], at: usize) -> &mut [f64; LANES] {
+    (&mut table[at..at + LANES])
+        .try_into()
+        .expect("a range of LANES cells")
+}
+
+#[inline(always)]
+fn lanes_add(a: &[f64; LANES], b: &[f64; LANES]) -> [f64; LANES] {
+    std::array::from_fn(|lane| a[lane] + b[lane])
 }
 
 /// `acc[lane] = max over k in ks of a[a_at(k) + lane] + b[b_at(k) + lane]` for one block of
@@ -418,8 +449,8 @@ fn block_max(
     // One check per block instead of two per term: a per-term check costs as much as the term.
     assert!(a_at(ks.start).max(a_at(last)) + LANES <= a.len());
     assert!(b_at(ks.start).max(b_at(last)) + LANES <= b.len());
-    for k in ks {
-        let (a_first, b_first) = (a_at(k), b_at(k));
+    for i in 0..ks.len() {
+        let (a_first, b_first) = (a_at(ks.start + i), b_at(ks.start + i));
         for lane in 0..LANES {
             // SAFETY: a_at and b_at are linear in k, so a_at(k) and b_at(k) lie between their
             // values at the range's two ends, which the asserts above bound by len − LANES.
@@ -439,6 +470,17 @@ enum Span {
     CompleteLeft(usize, usize),
     IncompleteRight(usize, usize),
     IncompleteLeft(usize, usize),
+}
+
+impl Span {
+    fn ends(self) -> (usize, usize) {
+        match self {
+            Span::CompleteRight(s, t)
+            | Span::CompleteLeft(s, t)
+            | Span::IncompleteRight(s, t)
+            | Span::IncompleteLeft(s, t) => (s, t),
+        }
+    }
 }
 
 /// First split point in `range` whose sum is the best (the sums are recomputed with the same
@@ -463,26 +505,26 @@ fn backtrace(charts: &Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) ->
     let mut heads = vec![0usize; side];
     let mut stack = vec![Span::CompleteRight(0, side - 1)];
     while let Some(span) = stack.pop() {
+        let (s, t) = span.ends();
+        if s == t {
+            // A one-position complete span (incomplete spans hold an arc, so s < t).
+            continue;
+        }
+        let r = if t - s < NARROW {
+            // Every part of a narrow span is narrow: read the narrow tables directly.
+            let narrow = &charts.narrow;
+            best_split(span, single_root, |chart, a, b| {
+                narrow.table(chart)[(b - a) * narrow.row + a]
+            })
+        } else {
+            best_split(span, single_root, |chart, a, b| charts.value(chart, a, b))
+        };
         match span {
             Span::CompleteRight(s, t) => {
-                if s == t {
-                    continue;
-                }
-                let r = first_best(s + 1..t + 1, |r| {
-                    charts.value(Chart::IncompleteRight, s, r)
-                        + charts.value(Chart::CompleteRight, r, t)
-                });
                 stack.push(Span::IncompleteRight(s, r));
                 stack.push(Span::CompleteRight(r, t));
             }
             Span::CompleteLeft(s, t) => {
-                if s == t {
-                    continue;
-                }
-                let r = first_best(s..t, |r| {
-                    charts.value(Chart::CompleteLeft, s, r)
-                        + charts.value(Chart::IncompleteLeft, r, t)
-                });
                 stack.push(Span::CompleteLeft(s, r));
                 stack.push(Span::IncompleteLeft(r, t));
             }
@@ -491,14 +533,6 @@ fn backtrace(charts: &Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) ->
                     Span::IncompleteRight(..) => heads[t] = s,
                     _ => heads[s] = t,
                 }
-                let r = if s == 0 && single_root {
-                    0
-                } else {
-                    first_best(s..t, |r| {
-                        charts.value(Chart::CompleteRight, s, r)
-                            + charts.value(Chart::CompleteLeft, r + 1, t)
-                    })
-                };
                 stack.push(Span::CompleteRight(s, r));
                 stack.push(Span::CompleteLeft(r + 1, t));
             }
@@ -506,4 +540,27 @@ fn backtrace(charts: &Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) ->
     }
     let _ = scores;
     heads
+}
+
+/// The split point of `span` that the fill's recurrence took, reading chart values through
+/// `value(chart, s, t)`.
+#[inline(always)]
+fn best_split(span: Span, single_root: bool, value: impl Fn(Chart, usize, usize) -> f64) -> usize {
+    match span {
+        Span::CompleteRight(s, t) => first_best(s + 1..t + 1, |r| {
+            value(Chart::IncompleteRight, s, r) + value(Chart::CompleteRight, r, t)
+        }),
+        Span::CompleteLeft(s, t) => first_best(s..t, |r| {
+            value(Chart::CompleteLeft, s, r) + value(Chart::IncompleteLeft, r, t)
+        }),
+        Span::IncompleteRight(s, t) | Span::IncompleteLeft(s, t) => {
+            if s == 0 && single_root {
+                0
+            } else {
+                first_best(s..t, |r| {
+                    value(Chart::CompleteRight, s, r) + value(Chart::CompleteLeft, r + 1, t)
+                })
+            }
+        }
+    }
 }
