@@ -341,7 +341,8 @@ fn fill_narrow(charts: &mut Charts<'_>, scores: &ScoreMatrix, single_root: bool)
                 cr,
                 |k| k * row + first,
                 cl,
-                |k| (w - 1 - k) * row + first + k + 1,
+                // = (w − 1 − k)·row + first + k + 1, written so that it is visibly linear in k.
+                |k| (w - 1) * row + first + 1 - k * (row - 1),
             );
             *lanes_mut(ir, here) = lanes_add(&inner, lanes(right_arc, here));
             *lanes_mut(il, here) = lanes_add(&inner, lanes(left_arc, here));
@@ -499,6 +500,22 @@ fn first_best(range: std::ops::Range<usize>, value: impl Fn(usize) -> f64) -> us
     best_r
 }
 
+/// First split point in `range` whose sum equals `target`, the span's own chart value: a
+/// complete span's value is exactly the best of these sums, so the search can stop there.
+/// (Incomplete spans store the best sum plus the arc's score, which may round, so they use
+/// [`first_best`].) Falls back to [`first_best`] if no sum matches, which the fill rules out.
+#[inline(always)]
+fn first_reaching(
+    range: std::ops::Range<usize>,
+    target: f64,
+    value: impl Fn(usize) -> f64,
+) -> usize {
+    match range.clone().find(|&r| value(r) == target) {
+        Some(r) => r,
+        None => first_best(range, value),
+    }
+}
+
 fn backtrace(charts: &Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) -> Vec<usize> {
     let side = charts.side;
     let single_root = root == RootConstraint::SingleRoot;
@@ -547,10 +564,12 @@ fn backtrace(charts: &Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) ->
 #[inline(always)]
 fn best_split(span: Span, single_root: bool, value: impl Fn(Chart, usize, usize) -> f64) -> usize {
     match span {
-        Span::CompleteRight(s, t) => first_best(s + 1..t + 1, |r| {
-            value(Chart::IncompleteRight, s, r) + value(Chart::CompleteRight, r, t)
-        }),
-        Span::CompleteLeft(s, t) => first_best(s..t, |r| {
+        Span::CompleteRight(s, t) => {
+            first_reaching(s + 1..t + 1, value(Chart::CompleteRight, s, t), |r| {
+                value(Chart::IncompleteRight, s, r) + value(Chart::CompleteRight, r, t)
+            })
+        }
+        Span::CompleteLeft(s, t) => first_reaching(s..t, value(Chart::CompleteLeft, s, t), |r| {
             value(Chart::CompleteLeft, s, r) + value(Chart::IncompleteLeft, r, t)
         }),
         Span::IncompleteRight(s, t) | Span::IncompleteLeft(s, t) => {
