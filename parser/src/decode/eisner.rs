@@ -13,13 +13,12 @@
 //! a few terms, so any cost paid per span dominates them. They are computed a block of
 //! [`LANES`] consecutive starts at a time, vectorized *across spans*. With `w = t − s` and the
 //! split's offset `k = r − s`, every recurrence's left operand is a span starting at `s` and its
-//! right operand a span ending at `t`, so the narrow spans are also kept in tables indexed by
-//! (width, start) and (width, end), where a block's operands are contiguous runs of `LANES`
-//! doubles and its maxima stay in vector registers: no reduction and no set-up per span. A span
-//! ending at `t` with width `j` starts at `t − j`, so one table by start serves both operands:
-//! the right operands of a block are the run starting at column `first + w − j` of row `j`,
-//! contiguous across the block's lanes too. Blocks
-//! go from the last start to the first and, within a block, widths upwards: a span needs only
+//! right operand a span ending at `t`. The narrow spans are also kept in tables indexed by
+//! (width, start), one per chart. A block's left operands are then a contiguous run of `LANES`
+//! doubles in row `k`; a right operand of width `j` ends at `t` and so starts at `t − j`, which
+//! makes the block's right operands the run at column `first + w − j` of row `j`, contiguous
+//! too. The maxima stay in vector registers: no reduction and no set-up per span. Blocks go
+//! from the last start to the first and, within a block, widths upwards: a span needs only
 //! narrower spans starting at or after its start. The rows a block reads stay in the first-level
 //! cache while its widths grow — which is also why the phase stops at [`NARROW`]: beyond it they
 //! no longer fit, and the second phase's access pattern is the better one.
@@ -35,7 +34,8 @@
 //! | `CL[s][t] = max_r CL[s][r] + IL[r][t]` | row `s` of `CL` | row `t` of `ILᵀ` |
 //!
 //! so each chart that is read down a column is also kept transposed; the rows `t` stay in cache
-//! for the whole inner loop. The first phase writes its spans into these charts too.
+//! for the whole inner loop. The first phase writes into these charts the spans a wide span
+//! reads: those in rows that start a wide span and, transposed, in rows that end one.
 //!
 //! Every chart value is a max of single additions of other chart values, so neither phase's
 //! order of taking the maximum changes it. No back-pointers are stored: the back-trace
