@@ -2,7 +2,7 @@
 //! features of the word, its affixes and shape, its neighbours and the two previous tags.
 
 use crate::features::{hash_str, mix};
-use crate::perceptron::{Trainee, bucket};
+use crate::perceptron::{Trainee, best_class};
 use crate::text;
 
 /// A trained tagger.
@@ -82,17 +82,7 @@ impl Tagger {
     }
 
     fn best_tag(&self, features: &[u64], weights: &[f32]) -> usize {
-        let mut best = (f32::NEG_INFINITY, 0);
-        for t in 0..self.tags.len() {
-            let s: f32 = features
-                .iter()
-                .map(|&f| weights[bucket(mix(f, t as u64), self.bits)])
-                .sum();
-            if s > best.0 {
-                best = (s, t);
-            }
-        }
-        best.1
+        best_class(features, self.tags.len(), weights, self.bits)
     }
 
     /// Trains on (forms, gold tags) pairs; the order of `sentences` is shuffled per epoch by
