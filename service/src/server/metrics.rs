@@ -1,10 +1,10 @@
 //! Prometheus metrics (names per the contract), recorded on the one request path.
 
-use std::sync::LazyLock;
+use std::sync::{LazyLock, OnceLock};
 
 use prometheus::{
-    Encoder, HistogramOpts, HistogramVec, IntCounterVec, IntGauge, IntGaugeVec, Opts, Registry,
-    TextEncoder,
+    Encoder, Histogram, HistogramOpts, HistogramVec, IntCounter, IntCounterVec, IntGauge,
+    IntGaugeVec, Opts, Registry, TextEncoder,
 };
 
 pub static REGISTRY: LazyLock<Registry> = LazyLock::new(Registry::new);
@@ -30,6 +30,73 @@ pub static STAGE_DURATION: LazyLock<HistogramVec> = LazyLock::new(|| {
         .expect("valid metric"),
     )
 });
+
+/// The parsing stages, in the order a sentence goes through them.
+pub const STAGES: [&str; 5] = ["tokenize", "tag", "score", "decode", "total"];
+/// The decoders, as labelled.
+const DECODERS: [&str; 2] = ["projective", "non-projective"];
+/// Length buckets: upper bounds and their labels.
+const LENGTH_BUCKETS: [(usize, &str); 8] = [
+    (8, "8"),
+    (16, "16"),
+    (32, "32"),
+    (64, "64"),
+    (128, "128"),
+    (256, "256"),
+    (512, "512"),
+    (usize::MAX, "+Inf"),
+];
+
+/// Handles of the stage histograms by (stage, decoder, length bucket), each looked up in the
+/// vector once, when first used (a series appears in `/metrics` once it has a sample). Looking a
+/// labelled child up takes a lock and hashes its labels; two parsing threads doing that five
+/// times per sentence cost measurably more than the observations themselves.
+static STAGE_HANDLES: LazyLock<Vec<OnceLock<Histogram>>> = LazyLock::new(|| {
+    (0..STAGES.len() * DECODERS.len() * LENGTH_BUCKETS.len())
+        .map(|_| OnceLock::new())
+        .collect()
+});
+/// Handles of the sentence and token counters by decoder.
+static SENTENCE_HANDLES: [OnceLock<(IntCounter, IntCounter)>; 2] =
+    [OnceLock::new(), OnceLock::new()];
+
+/// Records one parsed sentence: its stage durations (`stages`: names from [`STAGES`]) in the
+/// stage histograms and the scaling tracker, and the sentence and token counters.
+pub fn record_sentence(stages: &[(&'static str, f64)], decoder: &'static str, tokens: usize) {
+    let decoder_index = DECODERS.iter().position(|d| *d == decoder);
+    let bucket_index = LENGTH_BUCKETS
+        .iter()
+        .position(|(bound, _)| tokens <= *bound)
+        .unwrap_or(LENGTH_BUCKETS.len() - 1);
+    let bucket = LENGTH_BUCKETS[bucket_index].1;
+    for &(stage, seconds) in stages {
+        let histogram = match (STAGES.iter().position(|s| *s == stage), decoder_index) {
+            (Some(s), Some(d)) => STAGE_HANDLES
+                [(s * DECODERS.len() + d) * LENGTH_BUCKETS.len() + bucket_index]
+                .get_or_init(|| STAGE_DURATION.with_label_values(&[stage, decoder, bucket])),
+            // Not one of the known names: the general lookup (never taken by the service).
+            _ => &STAGE_DURATION.with_label_values(&[stage, decoder, bucket]),
+        };
+        histogram.observe(seconds);
+    }
+    super::scaling::record_stages(stages, decoder, tokens, bucket);
+    let counters = |d: &'static str| {
+        (
+            SENTENCES.with_label_values(&[d]),
+            TOKENS.with_label_values(&[d]),
+        )
+    };
+    let owned;
+    let (sentences, token_count) = match decoder_index {
+        Some(d) => SENTENCE_HANDLES[d].get_or_init(|| counters(DECODERS[d])),
+        None => {
+            owned = counters(decoder);
+            &owned
+        }
+    };
+    sentences.inc();
+    token_count.inc_by(tokens as u64);
+}
 
 pub static REQUESTS: LazyLock<IntCounterVec> = LazyLock::new(|| {
     register(
@@ -155,16 +222,7 @@ pub static SCALING_R_SQUARED: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| 
 
 /// The power-of-two upper bound of a sentence length: 8, 16, … 512, +Inf.
 pub fn length_bucket(tokens: usize) -> &'static str {
-    const BOUNDS: [(usize, &str); 7] = [
-        (8, "8"),
-        (16, "16"),
-        (32, "32"),
-        (64, "64"),
-        (128, "128"),
-        (256, "256"),
-        (512, "512"),
-    ];
-    BOUNDS
+    LENGTH_BUCKETS
         .iter()
         .find(|(b, _)| tokens <= *b)
         .map_or("+Inf", |(_, s)| s)

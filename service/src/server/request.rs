@@ -377,18 +377,15 @@ fn parse_sentence(
     let model = &served.model;
     let decoder = algorithm.unwrap_or(model.default_decoder);
     let decoder_name = decoder.name();
-    let bucket = metrics::length_bucket(work.forms.len());
     let tokens = work.forms.len();
     let _span = tracing::debug_span!("sentence", tokens, decoder = decoder_name).entered();
-    let observe = |stage: &str, seconds: f64| {
+    // Stage durations, recorded together at the end (one lock, no per-stage label lookups).
+    let mut stages = [("", 0.0); metrics::STAGES.len()];
+    let mut done = 0;
+    let mut observe = |stage: &'static str, seconds: f64| {
         tracing::debug!(stage, seconds, "stage done");
-        if !record_metrics {
-            return;
-        }
-        metrics::STAGE_DURATION
-            .with_label_values(&[stage, decoder_name, bucket])
-            .observe(seconds);
-        super::scaling::record(stage, decoder_name, tokens, bucket, seconds);
+        stages[done] = (stage, seconds);
+        done += 1;
     };
     let total = Instant::now();
     observe("tokenize", tokenize_seconds);
@@ -456,10 +453,7 @@ fn parse_sentence(
         .collect();
     observe("total", total.elapsed().as_secs_f64());
     if record_metrics {
-        metrics::SENTENCES.with_label_values(&[decoder_name]).inc();
-        metrics::TOKENS
-            .with_label_values(&[decoder_name])
-            .inc_by(work.forms.len() as u64);
+        metrics::record_sentence(&stages[..done], decoder_name, work.forms.len());
     }
     tokens
 }

@@ -85,33 +85,31 @@ impl Series {
     }
 }
 
-/// Series and per-bucket durations, keyed by (stage, decoder).
+/// Series and per-bucket durations, keyed by (stage, decoder). The names are static, so
+/// recording allocates nothing.
 #[derive(Debug, Default)]
 pub struct Tracker {
-    series: BTreeMap<(String, String), Series>,
-    buckets: BTreeMap<(String, String, &'static str), VecDeque<f64>>,
+    series: BTreeMap<(&'static str, &'static str), Series>,
+    buckets: BTreeMap<(&'static str, &'static str, &'static str), VecDeque<f64>>,
 }
 
 impl Tracker {
     pub fn record(
         &mut self,
-        stage: &str,
-        decoder: &str,
+        stage: &'static str,
+        decoder: &'static str,
         tokens: usize,
         bucket: &'static str,
         seconds: f64,
     ) {
-        let durations = self
-            .buckets
-            .entry((stage.to_string(), decoder.to_string(), bucket))
-            .or_default();
+        let durations = self.buckets.entry((stage, decoder, bucket)).or_default();
         durations.push_back(seconds);
         if durations.len() > BUCKET_WINDOW {
             durations.pop_front();
         }
         if tokens >= MIN_TOKENS && seconds > 0.0 {
             self.series
-                .entry((stage.to_string(), decoder.to_string()))
+                .entry((stage, decoder))
                 .or_default()
                 .push((tokens as f64).ln(), seconds.ln());
         }
@@ -121,7 +119,7 @@ impl Tracker {
         self.series
             .iter()
             .filter_map(|((stage, decoder), s)| {
-                s.fit().map(|f| (stage.clone(), decoder.clone(), f))
+                s.fit().map(|f| (stage.to_string(), decoder.to_string(), f))
             })
             .collect()
     }
@@ -150,9 +148,17 @@ impl Tracker {
 
 pub static TRACKER: LazyLock<Mutex<Tracker>> = LazyLock::new(|| Mutex::new(Tracker::default()));
 
-pub fn record(stage: &str, decoder: &str, tokens: usize, bucket: &'static str, seconds: f64) {
+/// Records one sentence's stage durations under one lock (the parsing threads share the tracker).
+pub fn record_stages(
+    stages: &[(&'static str, f64)],
+    decoder: &'static str,
+    tokens: usize,
+    bucket: &'static str,
+) {
     if let Ok(mut tracker) = TRACKER.lock() {
-        tracker.record(stage, decoder, tokens, bucket, seconds);
+        for &(stage, seconds) in stages {
+            tracker.record(stage, decoder, tokens, bucket, seconds);
+        }
     }
 }
 
