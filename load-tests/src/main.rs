@@ -314,7 +314,9 @@ async fn main() -> anyhow::Result<()> {
             // Step-up until the p99 budget breaks (or shedding / errors / client saturation), for
             // unary gRPC (the reference knee), unary HTTP, gRPC and HTTP batches of 32, gRPC
             // streams of 8 and, given a CoNLL-U file, unary gRPC on its sentences.
-            let full_rates = vec![100.0, 200.0, 400.0, 800.0, 1200.0, 1600.0, 2400.0, 3200.0];
+            let full_rates = vec![
+                100.0, 200.0, 400.0, 800.0, 1200.0, 1600.0, 2400.0, 3200.0, 4000.0,
+            ];
             let ladders = [
                 (
                     Api::GrpcParse,
@@ -343,7 +345,10 @@ async fn main() -> anyhow::Result<()> {
                     if quick {
                         vec![5.0, 20.0]
                     } else {
-                        vec![10.0, 20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 160.0, 200.0]
+                        vec![
+                            10.0, 20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 160.0, 200.0, 240.0, 280.0,
+                            320.0,
+                        ]
                     },
                 ),
                 (
@@ -353,7 +358,10 @@ async fn main() -> anyhow::Result<()> {
                     if quick {
                         vec![5.0]
                     } else {
-                        vec![10.0, 20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 160.0, 200.0]
+                        vec![
+                            10.0, 20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 160.0, 200.0, 240.0, 280.0,
+                            320.0,
+                        ]
                     },
                 ),
                 // Streams of 8 messages; a shed message is answered in the stream, so every
@@ -392,7 +400,7 @@ async fn main() -> anyhow::Result<()> {
                     rates: if quick {
                         vec![50.0, 200.0]
                     } else {
-                        [&full_rates[..], &[4000.0, 4800.0]].concat()
+                        [&full_rates[..], &[4800.0]].concat()
                     },
                     sentences,
                     model: conllu_model.clone(),

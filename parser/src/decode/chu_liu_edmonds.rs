@@ -27,10 +27,14 @@
 //! `score(0, r) − best word head of r` over the sum of every word's best word head, and no
 //! candidate can beat the unconstrained optimum. The search stops as soon as no remaining bound
 //! beats the best tree found. This is exact; its worst case is O(n³) (every candidate tried),
-//! where Zmigrod, Vieira & Cotterell (2020, "Please Mind the Root") give an O(n²) bound. Our
-//! first implementation of their deletion rule failed the brute-force check on a tie-free
-//! 3-word case (a deletion whose cheapest alternative arc closes a cycle), so the exact search
-//! ships until that rule is re-derived and passes the same checks.
+//! where Zmigrod, Vieira & Cotterell (2020, "Please Mind the Root") give an O(n²) bound by
+//! deleting root arcs one at a time. The naive reading of that rule — delete the root arc whose
+//! score exceeds its group's next-best in-arc by the least — is wrong when that next-best arc
+//! closes a cycle. Three words, root arcs 10 / 10 / 0, 1→3 = 10, 3→1 = 9.5, 1→2 = 3→2 = 1, the
+//! rest 0: the root takes 1 and 2; giving up 0→1 "costs" 0.5 (3→1 instead) and 0→2 costs 9, but
+//! 3→1 closes 1 ⇄ 3, and the best tree keeping 0→2 scores 20 while 0→1, 1→3, 1→2 scores 21.
+//! The exact search stays until the rule is re-derived with its cycle case and passes the same
+//! checks (`chu_liu_edmonds_single_root_matches_reference` has root-heavy scores for that).
 //!
 //! Ties: a word or group takes the in-arc whose head has the smallest position among equal
 //! scores; among single-root candidates of equal score the first tried wins (highest bound, then

@@ -10,7 +10,7 @@ use arcwright_parser::decode::{
 use arcwright_parser::marginals;
 use proptest::prelude::*;
 
-use crate::random_scores;
+use crate::{integer_scores, random_scores};
 
 fn scores_strategy(max_words: usize) -> impl Strategy<Value = ScoreMatrix> {
     (
@@ -133,7 +133,6 @@ fn marginals_equal_finite_difference_derivatives_of_the_log_partition() {
 /// (same tie rule: smallest split point), on continuous scores and on tie-heavy integer scores.
 #[test]
 fn eisner_matches_reference_across_its_two_phases() {
-    use crate::integer_scores;
     let lengths = (1..=12)
         .chain(40..=60)
         .chain([64, 95, 96, 97, 128, 130, 200]);
@@ -154,4 +153,76 @@ fn eisner_matches_reference_across_its_two_phases() {
             }
         }
     }
+}
+
+/// Chu-Liu-Edmonds with a single root (branch and bound over the root's child) against the
+/// textbook reference that tries every word as the root's only child: same best score on random,
+/// tie-heavy and root-heavy scores (the last make many words prefer the root, so many candidates
+/// compete and forcing one reshapes the rest of the tree).
+#[test]
+fn chu_liu_edmonds_single_root_matches_reference() {
+    use rand::rngs::StdRng;
+    use rand::{Rng, SeedableRng};
+    for n in 2..=24usize {
+        for seed in 0..40u64 {
+            let mut rng = StdRng::seed_from_u64(seed * 1000 + n as u64);
+            let root_heavy = ScoreMatrix::from_fn(n, |h, _| {
+                if h == 0 {
+                    rng.random_range(0.0..3.0)
+                } else {
+                    rng.random_range(-1.0..1.0)
+                }
+            })
+            .expect("valid matrix");
+            let mut rng = StdRng::seed_from_u64(seed * 7 + n as u64);
+            let root_ties = ScoreMatrix::from_fn(n, |h, _| {
+                f64::from(rng.random_range(-2..=2) + if h == 0 { 2 } else { 0 })
+            })
+            .expect("valid matrix");
+            for scores in [
+                random_scores(n, 1.0, seed + 31 * n as u64),
+                integer_scores(n, seed + 17 * n as u64),
+                root_heavy,
+                root_ties,
+            ] {
+                let fast = decode::decode(
+                    &scores,
+                    Algorithm::NonProjective,
+                    RootConstraint::SingleRoot,
+                );
+                let root_children =
+                    check_tree(&fast.heads).unwrap_or_else(|e| panic!("n={n} seed={seed}: {e}"));
+                assert_eq!(root_children, 1, "n={n} seed={seed}: {:?}", fast.heads);
+                let slow = reference::chu_liu_edmonds(&scores, RootConstraint::SingleRoot);
+                let expected = scores.tree_score(&slow);
+                assert!(
+                    (fast.score - expected).abs() <= 1e-9 * expected.abs().max(1.0),
+                    "n={n} seed={seed}: fast {} vs reference {expected}",
+                    fast.score
+                );
+            }
+        }
+    }
+}
+
+/// A three-word case where the cheapest root arc to give up (by its group's next-best in-arc)
+/// is the one the best single-root tree keeps, because that next-best arc closes a cycle (see
+/// the `chu_liu_edmonds` module docs). Worked by hand: 0→1, 1→3, 1→2 scores 21; the best tree
+/// with 0→2 scores 20.
+#[test]
+fn chu_liu_edmonds_single_root_keeps_the_arc_whose_replacement_closes_a_cycle() {
+    let scores = ScoreMatrix::from_fn(3, |h, m| match (h, m) {
+        (0, 1) | (0, 2) | (1, 3) => 10.0,
+        (3, 1) => 9.5,
+        (1, 2) | (3, 2) => 1.0,
+        _ => 0.0,
+    })
+    .expect("valid matrix");
+    let decoded = decode::decode(
+        &scores,
+        Algorithm::NonProjective,
+        RootConstraint::SingleRoot,
+    );
+    assert_eq!(decoded.heads, vec![0, 0, 1, 1]);
+    assert_eq!(decoded.score, 21.0);
 }
