@@ -27,6 +27,7 @@ pub fn best_class(features: &[u64], classes: usize, weights: &[f32], bits: u32) 
     }
     best.1
 }
+
 /// Asks the CPU to bring `table[index]` into the cache (a hint: no effect on results; nothing
 /// is read if `index` is out of range).
 #[inline(always)]

@@ -2,6 +2,8 @@
 
 use std::sync::{LazyLock, OnceLock};
 
+use arcwright_parser::decode::Algorithm;
+
 use prometheus::{
     Encoder, Histogram, HistogramOpts, HistogramVec, IntCounter, IntCounterVec, IntGauge,
     IntGaugeVec, Opts, Registry, TextEncoder,
@@ -32,9 +34,32 @@ pub static STAGE_DURATION: LazyLock<HistogramVec> = LazyLock::new(|| {
 });
 
 /// The parsing stages, in the order a sentence goes through them.
+#[derive(Debug, Clone, Copy)]
+pub enum Stage {
+    Tokenize,
+    Tag,
+    Score,
+    Decode,
+    Total,
+}
+
+/// The stages' label values, indexed by [`Stage`].
 pub const STAGES: [&str; 5] = ["tokenize", "tag", "score", "decode", "total"];
-/// The decoders, as labelled.
-const DECODERS: [&str; 2] = ["projective", "non-projective"];
+
+impl Stage {
+    pub fn name(self) -> &'static str {
+        STAGES[self as usize]
+    }
+}
+
+/// Decoders as indexed in the handle tables below.
+fn decoder_index(decoder: Algorithm) -> usize {
+    match decoder {
+        Algorithm::Projective => 0,
+        Algorithm::NonProjective => 1,
+    }
+}
+
 /// Length buckets: upper bounds and their labels.
 const LENGTH_BUCKETS: [(usize, &str); 8] = [
     (8, "8"),
@@ -52,7 +77,7 @@ const LENGTH_BUCKETS: [(usize, &str); 8] = [
 /// labelled child up takes a lock and hashes its labels; two parsing threads doing that five
 /// times per sentence cost measurably more than the observations themselves.
 static STAGE_HANDLES: LazyLock<Vec<OnceLock<Histogram>>> = LazyLock::new(|| {
-    (0..STAGES.len() * DECODERS.len() * LENGTH_BUCKETS.len())
+    (0..STAGES.len() * 2 * LENGTH_BUCKETS.len())
         .map(|_| OnceLock::new())
         .collect()
 });
@@ -60,40 +85,27 @@ static STAGE_HANDLES: LazyLock<Vec<OnceLock<Histogram>>> = LazyLock::new(|| {
 static SENTENCE_HANDLES: [OnceLock<(IntCounter, IntCounter)>; 2] =
     [OnceLock::new(), OnceLock::new()];
 
-/// Records one parsed sentence: its stage durations (`stages`: names from [`STAGES`]) in the
+/// Records one parsed sentence: its stage durations in seconds (indexed by [`Stage`]) in the
 /// stage histograms and the scaling tracker, and the sentence and token counters.
-pub fn record_sentence(stages: &[(&'static str, f64)], decoder: &'static str, tokens: usize) {
-    let decoder_index = DECODERS.iter().position(|d| *d == decoder);
-    let bucket_index = LENGTH_BUCKETS
+pub fn record_sentence(seconds: &[f64; STAGES.len()], decoder: Algorithm, tokens: usize) {
+    let (d, label) = (decoder_index(decoder), decoder.name());
+    let b = LENGTH_BUCKETS
         .iter()
         .position(|(bound, _)| tokens <= *bound)
         .unwrap_or(LENGTH_BUCKETS.len() - 1);
-    let bucket = LENGTH_BUCKETS[bucket_index].1;
-    for &(stage, seconds) in stages {
-        let histogram = match (STAGES.iter().position(|s| *s == stage), decoder_index) {
-            (Some(s), Some(d)) => STAGE_HANDLES
-                [(s * DECODERS.len() + d) * LENGTH_BUCKETS.len() + bucket_index]
-                .get_or_init(|| STAGE_DURATION.with_label_values(&[stage, decoder, bucket])),
-            // Not one of the known names: the general lookup (never taken by the service).
-            _ => &STAGE_DURATION.with_label_values(&[stage, decoder, bucket]),
-        };
-        histogram.observe(seconds);
+    let bucket = LENGTH_BUCKETS[b].1;
+    for (s, (stage, &value)) in STAGES.iter().zip(seconds).enumerate() {
+        STAGE_HANDLES[(s * 2 + d) * LENGTH_BUCKETS.len() + b]
+            .get_or_init(|| STAGE_DURATION.with_label_values(&[stage, label, bucket]))
+            .observe(value);
     }
-    super::scaling::record_stages(stages, decoder, tokens, bucket);
-    let counters = |d: &'static str| {
+    super::scaling::record_stages(seconds, label, tokens, bucket);
+    let (sentences, token_count) = SENTENCE_HANDLES[d].get_or_init(|| {
         (
-            SENTENCES.with_label_values(&[d]),
-            TOKENS.with_label_values(&[d]),
+            SENTENCES.with_label_values(&[label]),
+            TOKENS.with_label_values(&[label]),
         )
-    };
-    let owned;
-    let (sentences, token_count) = match decoder_index {
-        Some(d) => SENTENCE_HANDLES[d].get_or_init(|| counters(DECODERS[d])),
-        None => {
-            owned = counters(decoder);
-            &owned
-        }
-    };
+    });
     sentences.inc();
     token_count.inc_by(tokens as u64);
 }
@@ -219,14 +231,6 @@ pub static SCALING_R_SQUARED: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| 
         .expect("valid metric"),
     )
 });
-
-/// The power-of-two upper bound of a sentence length: 8, 16, … 512, +Inf.
-pub fn length_bucket(tokens: usize) -> &'static str {
-    LENGTH_BUCKETS
-        .iter()
-        .find(|(b, _)| tokens <= *b)
-        .map_or("+Inf", |(_, s)| s)
-}
 
 pub fn record_swap(name: &str, ok: bool) {
     SWAPS

@@ -11,7 +11,7 @@ use tokio::sync::Semaphore;
 
 use super::config::Limits;
 use super::errors::{ApiError, Kind};
-use super::metrics;
+use super::metrics::{self, Stage};
 use super::registry::{Registry, Served};
 
 /// Extra work a sentence's confidences may take to repair cancelled Matrix-Tree columns
@@ -380,15 +380,13 @@ fn parse_sentence(
     let tokens = work.forms.len();
     let _span = tracing::debug_span!("sentence", tokens, decoder = decoder_name).entered();
     // Stage durations, recorded together at the end (one lock, no per-stage label lookups).
-    let mut stages = [("", 0.0); metrics::STAGES.len()];
-    let mut done = 0;
-    let mut observe = |stage: &'static str, seconds: f64| {
-        tracing::debug!(stage, seconds, "stage done");
-        stages[done] = (stage, seconds);
-        done += 1;
+    let mut stage_seconds = [0.0; metrics::STAGES.len()];
+    let mut observe = |stage: Stage, seconds: f64| {
+        tracing::debug!(stage = stage.name(), seconds, "stage done");
+        stage_seconds[stage as usize] = seconds;
     };
     let total = Instant::now();
-    observe("tokenize", tokenize_seconds);
+    observe(Stage::Tokenize, tokenize_seconds);
     let t = Instant::now();
     let tags = match &work.tags {
         Some(tags) => tags.clone(),
@@ -400,7 +398,7 @@ fn parse_sentence(
         .as_ref()
         .filter(|_| model.features.morphology)
         .map(|m| m.tag(&work.forms));
-    observe("tag", t.elapsed().as_secs_f64());
+    observe(Stage::Tag, t.elapsed().as_secs_f64());
     let t = Instant::now();
     let features = model.sentence_features(&work.forms, &tags, morph.as_deref().unwrap_or(&[]));
     let scores = arcwright_parser::model::Model::arc_scores(
@@ -408,14 +406,14 @@ fn parse_sentence(
         &model.arc_weights,
         model.features.hash_bits,
     );
-    observe("score", t.elapsed().as_secs_f64());
+    observe(Stage::Score, t.elapsed().as_secs_f64());
     let t = Instant::now();
     let decoded = arcwright_parser::decode::decode(
         &scores,
         decoder,
         arcwright_parser::decode::RootConstraint::SingleRoot,
     );
-    observe("decode", t.elapsed().as_secs_f64());
+    observe(Stage::Decode, t.elapsed().as_secs_f64());
     let marginals = confidence.then(|| {
         arcwright_parser::marginals::marginals_within(
             &scores,
@@ -451,9 +449,9 @@ fn parse_sentence(
             }
         })
         .collect();
-    observe("total", total.elapsed().as_secs_f64());
+    observe(Stage::Total, total.elapsed().as_secs_f64());
     if record_metrics {
-        metrics::record_sentence(&stages[..done], decoder_name, work.forms.len());
+        metrics::record_sentence(&stage_seconds, decoder, work.forms.len());
     }
     tokens
 }

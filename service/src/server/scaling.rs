@@ -16,6 +16,8 @@ use std::sync::{LazyLock, Mutex};
 
 use serde::Serialize;
 
+use super::metrics::STAGES;
+
 /// Sentences kept per (stage, decoder) for the fit.
 pub const WINDOW: usize = 4096;
 /// Durations kept per (stage, decoder, length bucket) for quantiles.
@@ -150,14 +152,14 @@ pub static TRACKER: LazyLock<Mutex<Tracker>> = LazyLock::new(|| Mutex::new(Track
 
 /// Records one sentence's stage durations under one lock (the parsing threads share the tracker).
 pub fn record_stages(
-    stages: &[(&'static str, f64)],
+    seconds: &[f64; STAGES.len()],
     decoder: &'static str,
     tokens: usize,
     bucket: &'static str,
 ) {
     if let Ok(mut tracker) = TRACKER.lock() {
-        for &(stage, seconds) in stages {
-            tracker.record(stage, decoder, tokens, bucket, seconds);
+        for (stage, &value) in STAGES.iter().zip(seconds) {
+            tracker.record(stage, decoder, tokens, bucket, value);
         }
     }
 }
