@@ -138,7 +138,7 @@ impl<'a> Charts<'a> {
     fn value(&self, chart: Chart, s: usize, t: usize) -> f64 {
         let w = t - s;
         if w < NARROW {
-            return self.narrow.table(chart)[w * self.narrow.row + s];
+            return self.narrow.value(chart, s, t);
         }
         match chart {
             Chart::CompleteRight => self.complete_right[s * self.side + t],
@@ -150,13 +150,15 @@ impl<'a> Charts<'a> {
 }
 
 impl NarrowTables<'_> {
-    fn table(&self, chart: Chart) -> &[f64] {
-        match chart {
+    /// Narrow span `[s, t]` (`t − s < NARROW`) of `chart`.
+    fn value(&self, chart: Chart, s: usize, t: usize) -> f64 {
+        let table: &[f64] = match chart {
             Chart::CompleteRight => self.complete_right,
             Chart::CompleteLeft => self.complete_left,
             Chart::IncompleteRight => self.incomplete_right,
             Chart::IncompleteLeft => self.incomplete_left,
-        }
+        };
+        table[(t - s) * self.row + s]
     }
 }
 
@@ -529,9 +531,8 @@ fn backtrace(charts: &Charts<'_>, scores: &ScoreMatrix, root: RootConstraint) ->
         }
         let r = if t - s < NARROW {
             // Every part of a narrow span is narrow: read the narrow tables directly.
-            let narrow = &charts.narrow;
             best_split(span, single_root, |chart, a, b| {
-                narrow.table(chart)[(b - a) * narrow.row + a]
+                charts.narrow.value(chart, a, b)
             })
         } else {
             best_split(span, single_root, |chart, a, b| charts.value(chart, a, b))
