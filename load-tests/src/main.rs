@@ -87,6 +87,10 @@ enum Command {
         decoder: Option<String>,
         #[arg(long)]
         confidence: bool,
+        /// Closed loop instead: keep this many requests open at all times and report the
+        /// completion rate (capacity); --rate is then ignored.
+        #[arg(long)]
+        closed: Option<usize>,
     },
     /// All scenarios; writes results.json, REPORT.md and plots to --out.
     Suite {
@@ -148,6 +152,29 @@ fn rss_kib(pid: u32) -> Option<u64> {
 }
 
 /// Sum of `arcwright_requests_total` per api from the server's /metrics.
+/// The server's total stage time (p50, p99, in ms) for sentences in the length bucket of
+/// `words`, from `/v1/scaling` (the bucket's recent window, any decoder: the fullest).
+async fn server_compute_ms(http: &str, words: usize) -> Option<(f64, f64)> {
+    let scaling: serde_json::Value = reqwest::get(format!("{http}/v1/scaling"))
+        .await
+        .ok()?
+        .json()
+        .await
+        .ok()?;
+    let bucket = words.next_power_of_two().to_string();
+    scaling["buckets"]
+        .as_array()?
+        .iter()
+        .filter(|b| b["stage"] == "total" && b["length_bucket"] == bucket.as_str())
+        .max_by_key(|b| b["count"].as_u64().unwrap_or(0))
+        .and_then(|b| {
+            Some((
+                b["p50_seconds"].as_f64()? * 1e3,
+                b["p99_seconds"].as_f64()? * 1e3,
+            ))
+        })
+}
+
 async fn server_requests(http: &str) -> anyhow::Result<std::collections::BTreeMap<String, f64>> {
     let text = reqwest::get(format!("{http}/metrics"))
         .await?
@@ -188,6 +215,7 @@ async fn main() -> anyhow::Result<()> {
             batch,
             decoder,
             confidence,
+            closed,
         } => {
             let sentences = match (conllu, words) {
                 (Some(path), _) => workload::conllu_file(&path)?,
@@ -203,7 +231,20 @@ async fn main() -> anyhow::Result<()> {
                 max_outstanding: 512,
                 batch: batch.max(1),
             };
-            let result = openloop::run(&client, &sentences, &plan).await;
+            let result = match closed {
+                Some(concurrency) => {
+                    openloop::saturate(
+                        &client,
+                        &sentences,
+                        plan.batch,
+                        concurrency,
+                        plan.duration,
+                        max_requests,
+                    )
+                    .await
+                }
+                None => openloop::run(&client, &sentences, &plan).await,
+            };
             println!("{}", serde_json::to_string_pretty(&result)?);
         }
         Command::Report { input, out } => {
@@ -501,11 +542,50 @@ async fn main() -> anyhow::Result<()> {
                 suite.swaps_done = swapper.await.unwrap_or(0);
                 suite.swap = Some(r);
             }
-            // Half the knee: p99 should stay within 3× p50.
+            // Half the knee: p99 should stay within 3× p50. The server's own compute time for
+            // the same sentences comes from /v1/scaling right after the first run (its windows
+            // then hold that run's last sentences); the repeats show the machine's run-to-run
+            // spread.
             if let Some(knee) = suite.knee_rate {
                 let r = openloop::run(&grpc, &medium, &plan(knee / 2.0, seconds, 1)).await;
                 generated += r.sent;
                 suite.half_knee = Some(r);
+                suite.half_knee_server_ms = server_compute_ms(&target.http, medium[0].len()).await;
+                for _ in 0..if quick { 1 } else { 2 } {
+                    let r = openloop::run(&grpc, &medium, &plan(knee / 2.0, seconds, 1)).await;
+                    generated += r.sent;
+                    suite.half_knee_repeats.push(r);
+                }
+            }
+            // Capacity: closed loop with a fixed number of batches open, then (below) the
+            // in-process rate on the same sentences, right after.
+            for (api, name) in [
+                (Api::GrpcBatch, "grpc-batch (32)"),
+                (Api::HttpBatch, "http-batch (32)"),
+            ] {
+                let client = Client::connect(api, &target.http, &target.grpc, None, false).await?;
+                let opens: &[usize] = if quick { &[4] } else { &[2, 4, 8] };
+                for &open in opens {
+                    let run = openloop::saturate(
+                        &client,
+                        &medium,
+                        32,
+                        open,
+                        Duration::from_secs_f64(if quick { 1.0 } else { 6.0 }),
+                        100_000,
+                    )
+                    .await;
+                    generated += server_requests_for(api, 32, run.sent);
+                    suite
+                        .capacity
+                        .entry(name.to_string())
+                        .or_default()
+                        .push(report::Capacity {
+                            open,
+                            batch: 32,
+                            run,
+                        });
+                }
             }
             // In-process throughput of the same sentences on all cores, for the batch ratio.
             if let Some(dir) = &model_dir {

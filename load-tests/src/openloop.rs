@@ -83,6 +83,60 @@ fn histogram() -> Histogram<u64> {
     Histogram::new_with_bounds(1, 600_000_000, 3).expect("valid histogram bounds")
 }
 
+impl Tally {
+    fn new() -> Tally {
+        Tally {
+            all: histogram(),
+            lag: histogram(),
+            buckets: BTreeMap::new(),
+            result: RunResult::default(),
+        }
+    }
+
+    /// One answered request: `lag` from its scheduled to its actual send, `micros` from its
+    /// scheduled send to its answer.
+    fn record(&mut self, request: &[Sentence], lag: u64, micros: u64, outcome: Outcome) {
+        let longest = request.iter().map(Vec::len).max().unwrap_or(1);
+        let _ = self.lag.record(lag);
+        match outcome {
+            Outcome::Ok(version) => {
+                self.result.ok += 1;
+                *self.result.versions.entry(version).or_default() += 1;
+                let _ = self.all.record(micros);
+                let _ = self
+                    .buckets
+                    .entry(bucket(longest))
+                    .or_insert_with(histogram)
+                    .record(micros);
+                self.result.sentences_per_second += request.len() as f64;
+            }
+            Outcome::Shed => self.result.shed += 1,
+            Outcome::Error(message) => {
+                self.result.errors += 1;
+                if self.result.first_errors.len() < 5 {
+                    self.result.first_errors.push(message);
+                }
+            }
+        }
+    }
+
+    /// The run's summary; `sentences_per_second` so far holds the count of sentences parsed.
+    fn finish(&self, seconds: f64, sent: u64) -> RunResult {
+        let mut result = self.result.clone();
+        result.seconds = seconds;
+        result.sent = sent;
+        result.sentences_per_second /= seconds.max(1e-9);
+        result.latency = Latency::from(&self.all);
+        result.send_lag = Latency::from(&self.lag);
+        result.by_bucket = self
+            .buckets
+            .iter()
+            .map(|(b, h)| (*b, Latency::from(h)))
+            .collect();
+        result
+    }
+}
+
 /// Microseconds since `instant`, within the histograms' bounds.
 fn micros_since(instant: Instant) -> u64 {
     instant.elapsed().as_micros().clamp(1, 600_000_000) as u64
@@ -90,12 +144,7 @@ fn micros_since(instant: Instant) -> u64 {
 
 /// Runs the plan against `client`, cycling through `sentences`.
 pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunResult {
-    let tally = Arc::new(Mutex::new(Tally {
-        all: histogram(),
-        lag: histogram(),
-        buckets: BTreeMap::new(),
-        result: RunResult::default(),
-    }));
+    let tally = Arc::new(Mutex::new(Tally::new()));
     let outstanding = Arc::new(tokio::sync::Semaphore::new(plan.max_outstanding));
     let interval = Duration::from_secs_f64(1.0 / plan.rate.max(0.001));
     let started = Instant::now();
@@ -148,29 +197,10 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
             let lag = micros_since(scheduled);
             let outcome = client.send(&request).await;
             let micros = micros_since(scheduled);
-            let longest = request.iter().map(Vec::len).max().unwrap_or(1);
-            let mut t = tally.lock().expect("tally lock");
-            let _ = t.lag.record(lag);
-            match outcome {
-                Outcome::Ok(version) => {
-                    t.result.ok += 1;
-                    *t.result.versions.entry(version).or_default() += 1;
-                    let _ = t.all.record(micros);
-                    let _ = t
-                        .buckets
-                        .entry(bucket(longest))
-                        .or_insert_with(histogram)
-                        .record(micros);
-                    t.result.sentences_per_second += request.len() as f64;
-                }
-                Outcome::Shed => t.result.shed += 1,
-                Outcome::Error(message) => {
-                    t.result.errors += 1;
-                    if t.result.first_errors.len() < 5 {
-                        t.result.first_errors.push(message);
-                    }
-                }
-            }
+            tally
+                .lock()
+                .expect("tally lock")
+                .record(&request, lag, micros, outcome);
             drop(permit);
         }));
     }
@@ -178,19 +208,61 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
         let _ = task.await;
     }
     let seconds = started.elapsed().as_secs_f64();
-    let t = tally.lock().expect("tally lock");
-    let mut result = t.result.clone();
+    let mut result = tally.lock().expect("tally lock").finish(seconds, sent);
     result.offered_rate = plan.rate;
-    result.seconds = seconds;
-    result.sent = sent;
     result.client_overloaded = skipped;
-    result.sentences_per_second /= seconds.max(1e-9);
-    result.latency = Latency::from(&t.all);
-    result.send_lag = Latency::from(&t.lag);
-    result.by_bucket = t
-        .buckets
-        .iter()
-        .map(|(b, h)| (*b, Latency::from(h)))
-        .collect();
     result
+}
+
+/// The closed-loop counterpart, for capacity: `concurrency` requests of `batch` sentences are
+/// kept open at all times (each answer sends the next), for `duration` or `max_requests`
+/// requests. The completion rate is the service's throughput when it is never idle and never
+/// overloaded — what an offline client with a fixed number of connections gets. Latency here is
+/// from each request's actual send (there is no schedule); `offered_rate` is 0.
+pub async fn saturate(
+    client: &Client,
+    sentences: &[Sentence],
+    batch: usize,
+    concurrency: usize,
+    duration: Duration,
+    max_requests: usize,
+) -> RunResult {
+    let tally = Arc::new(Mutex::new(Tally::new()));
+    let issued = Arc::new(std::sync::atomic::AtomicUsize::new(0));
+    let sentences: Arc<[Sentence]> = sentences.into();
+    let started = Instant::now();
+    let mut tasks = Vec::new();
+    for worker in 0..concurrency.max(1) {
+        let (client, tally, issued, sentences) = (
+            client.clone(),
+            tally.clone(),
+            issued.clone(),
+            sentences.clone(),
+        );
+        tasks.push(tokio::spawn(async move {
+            let mut index = worker * batch;
+            while started.elapsed() < duration
+                && issued.fetch_add(1, std::sync::atomic::Ordering::Relaxed) < max_requests
+            {
+                let request: Vec<Sentence> = (0..batch)
+                    .map(|i| sentences[(index + i) % sentences.len()].clone())
+                    .collect();
+                index += batch * concurrency;
+                let sent_at = Instant::now();
+                let outcome = client.send(&request).await;
+                let micros = micros_since(sent_at);
+                tally
+                    .lock()
+                    .expect("tally lock")
+                    .record(&request, 1, micros, outcome);
+            }
+        }));
+    }
+    for task in tasks {
+        let _ = task.await;
+    }
+    let seconds = started.elapsed().as_secs_f64();
+    let t = tally.lock().expect("tally lock");
+    // Every request sent was awaited, so each has exactly one outcome.
+    t.finish(seconds, t.result.ok + t.result.shed + t.result.errors)
 }

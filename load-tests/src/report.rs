@@ -27,6 +27,17 @@ pub struct Suite {
     /// Steady run at half the gRPC Parse knee.
     #[serde(default)]
     pub half_knee: Option<RunResult>,
+    /// Further steady runs at half the knee, made right after the first (the machine is shared
+    /// and noisy; each run's ratio is its own).
+    #[serde(default)]
+    pub half_knee_repeats: Vec<RunResult>,
+    /// Server-side total parse time (p50, p99 in ms) of the 25-word sentences of the first
+    /// half-knee run, from `/v1/scaling`: the part of the latency spent computing.
+    #[serde(default)]
+    pub half_knee_server_ms: Option<(f64, f64)>,
+    /// Closed-loop capacity runs: API name → runs at increasing numbers of open requests.
+    #[serde(default)]
+    pub capacity: BTreeMap<String, Vec<Capacity>>,
     /// Parsing the same sentences in-process on all cores.
     #[serde(default)]
     pub in_process_sentences_per_second: Option<f64>,
@@ -38,6 +49,14 @@ pub struct Suite {
     pub rss_kib: BTreeMap<String, u64>,
     pub scaling: serde_json::Value,
     pub accounting: serde_json::Value,
+}
+
+/// One closed-loop run: `open` requests of `batch` sentences kept in flight.
+#[derive(Debug, Clone, Serialize, Deserialize, Default)]
+pub struct Capacity {
+    pub open: usize,
+    pub batch: usize,
+    pub run: RunResult,
 }
 
 fn fmt(x: f64) -> String {
@@ -163,19 +182,77 @@ pub fn markdown(s: &Suite) -> String {
             knees.join(", ")
         );
     }
+    if !s.capacity.is_empty() {
+        let _ = writeln!(
+            out,
+            "\n## Capacity (closed loop)\n\nEach answer sends the next request, with a fixed number \
+             of requests open: the completion rate when the service is never idle and never \
+             overloaded. Latency from each actual send.\n"
+        );
+        let _ = writeln!(
+            out,
+            "| API | requests open | sentences/s | shed | errors | p50 ms | p99 ms |\n| --- | --- | --- | --- | --- | --- | --- |"
+        );
+        for (name, runs) in &s.capacity {
+            for c in runs {
+                let _ = writeln!(
+                    out,
+                    "| {name} | {} | {} | {} | {} | {} | {} |",
+                    c.open,
+                    fmt(c.run.sentences_per_second),
+                    c.run.shed,
+                    c.run.errors,
+                    fmt(c.run.latency.p50_ms),
+                    fmt(c.run.latency.p99_ms)
+                );
+            }
+        }
+        if let Some(local) = s.in_process_sentences_per_second {
+            let _ = writeln!(
+                out,
+                "\nIn-process, same sentences, all cores, right after these runs: {} sentences/s.",
+                fmt(local)
+            );
+        }
+    }
+
     let _ = writeln!(out, "\n## Targets (issue 7)\n");
     match (&s.half_knee, s.knee_rate) {
         (Some(r), Some(knee)) => {
-            let ratio = r.latency.p99_ms / r.latency.p50_ms.max(1e-9);
+            let ratio = |r: &RunResult| r.latency.p99_ms / r.latency.p50_ms.max(1e-9);
             let _ = writeln!(
                 out,
                 "- p99 at half the knee ({} req/s) ≤ 3 × p50: p50 {} ms, p99 {} ms, ratio {:.2} — **{}**",
                 fmt(knee / 2.0),
                 fmt(r.latency.p50_ms),
                 fmt(r.latency.p99_ms),
-                ratio,
-                if ratio <= 3.0 { "met" } else { "not met" }
+                ratio(r),
+                if ratio(r) <= 3.0 { "met" } else { "not met" }
             );
+            if !s.half_knee_repeats.is_empty() {
+                let all: Vec<String> = s
+                    .half_knee_repeats
+                    .iter()
+                    .map(|r| {
+                        format!(
+                            "p50 {} ms, p99 {} ms, ratio {:.2}",
+                            fmt(r.latency.p50_ms),
+                            fmt(r.latency.p99_ms),
+                            ratio(r)
+                        )
+                    })
+                    .collect();
+                let met = std::iter::once(r)
+                    .chain(&s.half_knee_repeats)
+                    .filter(|r| ratio(r) <= 3.0)
+                    .count();
+                let _ = writeln!(
+                    out,
+                    "  - the same run repeated at once: {}; met in {met} of {} runs",
+                    all.join("; "),
+                    s.half_knee_repeats.len() + 1
+                );
+            }
             if r.send_lag.count > 0 {
                 let _ = writeln!(
                     out,
@@ -185,28 +262,58 @@ pub fn markdown(s: &Suite) -> String {
                     fmt(r.send_lag.p99_ms)
                 );
             }
+            if let Some((p50, p99)) = s.half_knee_server_ms {
+                let _ = writeln!(
+                    out,
+                    "  - of which computing (the server's own total stage time for these sentences, \
+                     `/v1/scaling`): p50 {} ms, p99 {} ms; the rest is transport, queueing and \
+                     scheduling on the shared cores",
+                    fmt(p50),
+                    fmt(p99)
+                );
+            }
         }
         _ => {
             let _ = writeln!(out, "- p99 at half the knee: no knee found");
         }
     }
-    match (
-        s.knees.get("grpc-batch (32)"),
-        s.in_process_sentences_per_second,
-    ) {
-        (Some(batch), Some(local)) => {
+    let capacity = s
+        .capacity
+        .get("grpc-batch (32)")
+        .and_then(|runs| {
+            runs.iter().max_by(|a, b| {
+                a.run
+                    .sentences_per_second
+                    .total_cmp(&b.run.sentences_per_second)
+            })
+        })
+        .filter(|c| c.run.errors == 0 && c.run.shed == 0);
+    match (capacity, s.in_process_sentences_per_second) {
+        (Some(c), Some(local)) => {
+            let rate = c.run.sentences_per_second;
             let _ = writeln!(
                 out,
-                "- gRPC batch throughput ≥ 80% of in-process: {} vs {} sentences/s in-process on all cores for 5 s with nothing else running = {:.0}% — **{}** (the generator shares the cores; the batch figure is the highest step within budget, not a saturation point)",
-                fmt(*batch),
+                "- gRPC batch throughput ≥ 80% of in-process: {} sentences/s (closed loop, {} batches of {} open, nothing shed) vs {} in-process on all cores = {:.0}% — **{}**",
+                fmt(rate),
+                c.open,
+                c.batch,
                 fmt(local),
-                100.0 * batch / local,
-                if *batch >= 0.8 * local {
+                100.0 * rate / local,
+                if rate >= 0.8 * local {
                     "met"
                 } else {
                     "not met"
                 }
             );
+            if let Some(knee) = s.knees.get("grpc-batch (32)") {
+                let _ = writeln!(
+                    out,
+                    "  - open loop, the highest step within the latency budget with nothing shed: \
+                     {} sentences/s = {:.0}%",
+                    fmt(*knee),
+                    100.0 * knee / local
+                );
+            }
         }
         _ => {
             let _ = writeln!(
