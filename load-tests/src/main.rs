@@ -201,6 +201,10 @@ async fn server_requests(http: &str) -> anyhow::Result<std::collections::BTreeMa
     Ok(out)
 }
 
+/// The same allocator as the service, so that the in-process figure compares like with like.
+#[global_allocator]
+static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 #[tokio::main(flavor = "multi_thread", worker_threads = 2)]
 async fn main() -> anyhow::Result<()> {
     match Cli::parse().command {

@@ -95,10 +95,11 @@ fn read_f32(path: &Path, expected: usize) -> Result<Vec<f32>, ModelError> {
             ),
         });
     }
-    Ok(bytes
-        .chunks_exact(4)
-        .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
-        .collect())
+    let mut table = crate::perceptron::weight_table(expected);
+    for (weight, c) in table.iter_mut().zip(bytes.chunks_exact(4)) {
+        *weight = f32::from_le_bytes([c[0], c[1], c[2], c[3]]);
+    }
+    Ok(table)
 }
 
 impl Model {

@@ -46,6 +46,43 @@ pub(crate) fn prefetch(table: &[f32], index: usize) {
     let _ = (table, index);
 }
 
+/// A zeroed weight table of `len` entries, backed by huge pages where the system offers them.
+///
+/// Every lookup lands on a pseudo-random entry (a hashed feature), so with 4 KiB pages a table
+/// of megabytes costs a TLB miss — a page walk — on nearly every lookup; a parse makes tens of
+/// thousands. On Linux the table is advised as transparent huge pages (`MADV_HUGEPAGE`, 2 MiB)
+/// before its first write, so the kernel backs it with a few TLB entries instead of thousands
+/// (a 25-word parse on the demo model ran 15–20% faster; see DEVELOPERS.md). Only a hint:
+/// where huge pages are off, or elsewhere, the table is an ordinary zeroed vector.
+pub fn weight_table(len: usize) -> Vec<f32> {
+    // Zeroed memory of this size comes straight from the kernel (calloc → mmap) and is not
+    // touched until written, so the advice applies before any page is faulted in.
+    let mut table = vec![0.0f32; len];
+    advise_huge_pages(&mut table);
+    table
+}
+
+#[cfg(target_os = "linux")]
+fn advise_huge_pages(table: &mut [f32]) {
+    const PAGE: usize = 4096;
+    const HUGE_PAGE: usize = 2 << 20;
+    let start = table.as_mut_ptr() as usize;
+    let end = start + std::mem::size_of_val(table);
+    let first = start.next_multiple_of(PAGE);
+    if end < first + HUGE_PAGE {
+        return; // too small to hold a huge page
+    }
+    let length = (end - first) / PAGE * PAGE;
+    // SAFETY: [first, first + length) lies inside `table`, memory this function borrows
+    // mutably, and is page-aligned as madvise requires. MADV_HUGEPAGE changes only how the
+    // kernel backs those pages, never their contents or validity; a failure is harmless.
+    #[allow(unsafe_code)] // one advisory system call on memory we own
+    let _ = unsafe { libc::madvise(first as *mut libc::c_void, length, libc::MADV_HUGEPAGE) };
+}
+
+#[cfg(not(target_os = "linux"))]
+fn advise_huge_pages(_table: &mut [f32]) {}
+
 /// Weights being trained, with their averaging accumulator.
 #[derive(Debug, Clone)]
 pub struct Trainee {
@@ -57,7 +94,7 @@ pub struct Trainee {
 
 impl Trainee {
     pub fn new(bits: u32) -> Self {
-        Trainee::from_weights(bits, vec![0.0; 1 << bits])
+        Trainee::from_weights(bits, weight_table(1 << bits))
     }
 
     /// Starts from existing weights (iterative parameter mixing).
@@ -66,7 +103,7 @@ impl Trainee {
         Trainee {
             bits,
             weights,
-            accumulated: vec![0.0; size],
+            accumulated: weight_table(size),
             steps: 0.0,
         }
     }
@@ -113,4 +150,23 @@ pub fn mean(vectors: &[Vec<f32>]) -> Vec<f32> {
         }
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Huge-page advice or not, a weight table is an ordinary zeroed vector of the asked size
+    /// (sizes below, at and above one huge page, and not a multiple of a page).
+    #[test]
+    fn weight_tables_are_zeroed_and_sized() {
+        for len in [0, 1, 1000, (2 << 20) / 4, (5 << 20) / 4 + 3] {
+            let mut table = weight_table(len);
+            assert_eq!(table.len(), len);
+            assert!(table.iter().all(|&w| w == 0.0));
+            if let Some(last) = table.last_mut() {
+                *last = 1.5; // writable to the end
+            }
+        }
+    }
 }

@@ -6,6 +6,12 @@ use arcwright::{cli, commands, server};
 
 use std::process::ExitCode;
 
+/// mimalloc rather than the system allocator: a parse allocates a few hundred small strings and
+/// vectors on a parsing thread that the network threads free, and the system allocator's
+/// cross-thread frees were the largest cost outside parsing (see DEVELOPERS.md, Performance).
+#[global_allocator]
+static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 fn main() -> ExitCode {
     let matches = <cli::Cli as clap::CommandFactory>::command().get_matches();
     let args = match <cli::Cli as clap::FromArgMatches>::from_arg_matches(&matches) {
