@@ -62,6 +62,15 @@ pub fn weight_table(len: usize) -> Vec<f32> {
     table
 }
 
+/// A weight table (as [`weight_table`]) holding `values`.
+pub fn weight_table_from(values: impl ExactSizeIterator<Item = f32>) -> Vec<f32> {
+    let mut table = weight_table(values.len());
+    for (cell, value) in table.iter_mut().zip(values) {
+        *cell = value;
+    }
+    table
+}
+
 #[cfg(target_os = "linux")]
 fn advise_huge_pages(table: &mut [f32]) {
     const PAGE: usize = 4096;
@@ -123,14 +132,15 @@ impl Trainee {
     /// Average of the weights over the steps taken so far (the weights themselves if none).
     pub fn averaged(&self) -> Vec<f32> {
         if self.steps == 0.0 {
-            return self.weights.clone();
+            return weight_table_from(self.weights.iter().copied());
         }
         let scale = (1.0 / self.steps) as f32;
-        self.weights
-            .iter()
-            .zip(&self.accumulated)
-            .map(|(w, u)| w - u * scale)
-            .collect()
+        weight_table_from(
+            self.weights
+                .iter()
+                .zip(&self.accumulated)
+                .map(|(w, u)| w - u * scale),
+        )
     }
 }
 
@@ -143,7 +153,7 @@ pub fn score(weights: &[f32], bits: u32, hashes: impl IntoIterator<Item = u64>) 
 /// Element-wise mean of several weight vectors of the same length.
 pub fn mean(vectors: &[Vec<f32>]) -> Vec<f32> {
     let scale = 1.0 / vectors.len() as f32;
-    let mut out = vec![0.0f32; vectors.first().map_or(0, Vec::len)];
+    let mut out = weight_table(vectors.first().map_or(0, Vec::len));
     for v in vectors {
         for (o, x) in out.iter_mut().zip(v) {
             *o += x * scale;

@@ -15,7 +15,7 @@ use crate::conllu::Sentence;
 use crate::decode::{self, Algorithm, RootConstraint, is_projective};
 use crate::features::{FeatureConfig, mix};
 use crate::model::Model;
-use crate::perceptron::{self, Trainee};
+use crate::perceptron::{self, Trainee, weight_table, weight_table_from};
 use crate::tagger::Tagger;
 use crate::text;
 
@@ -194,8 +194,8 @@ pub fn train(
         tags,
         labels,
         label_bits: options.label_bits,
-        arc_weights: vec![0.0; 1 << options.features.hash_bits],
-        label_weights: vec![0.0; 1 << options.label_bits],
+        arc_weights: weight_table(1 << options.features.hash_bits),
+        label_weights: weight_table(1 << options.label_bits),
         tagger,
         morph_tagger,
         default_decoder: decoder,
@@ -214,10 +214,10 @@ pub fn train(
 
     let bits = options.features.hash_bits;
     let label_bits = options.label_bits;
-    let mut current_arcs = vec![0.0f32; 1 << bits];
-    let mut current_labels = vec![0.0f32; 1 << label_bits];
-    let mut average_sum_arcs = vec![0.0f32; 1 << bits];
-    let mut average_sum_labels = vec![0.0f32; 1 << label_bits];
+    let mut current_arcs = weight_table(1 << bits);
+    let mut current_labels = weight_table(1 << label_bits);
+    let mut average_sum_arcs = weight_table(1 << bits);
+    let mut average_sum_labels = weight_table(1 << label_bits);
     let mut best: Option<(f64, Vec<f32>, Vec<f32>)> = None;
     let mut since_best = 0;
     let mut order: Vec<usize> = (0..train.len()).collect();
@@ -238,7 +238,10 @@ pub fn train(
             let handles: Vec<_> = shards
                 .iter()
                 .map(|shard| {
-                    let (arcs, labels) = (current_arcs.clone(), current_labels.clone());
+                    let (arcs, labels) = (
+                        weight_table_from(current_arcs.iter().copied()),
+                        weight_table_from(current_labels.iter().copied()),
+                    );
                     let update = options.update;
                     scope.spawn(move || {
                         train_shard(
@@ -284,8 +287,8 @@ pub fn train(
             *sum += x;
         }
         let scale = 1.0 / epoch as f32;
-        model.arc_weights = average_sum_arcs.iter().map(|x| x * scale).collect();
-        model.label_weights = average_sum_labels.iter().map(|x| x * scale).collect();
+        model.arc_weights = weight_table_from(average_sum_arcs.iter().map(|x| x * scale));
+        model.label_weights = weight_table_from(average_sum_labels.iter().map(|x| x * scale));
         let dev_uas = (!dev.is_empty()).then(|| dev_attachment(&model, dev, decoder));
         let report = EpochReport {
             epoch,
@@ -296,7 +299,11 @@ pub fn train(
         progress("epoch", Some(&report));
         if let Some(uas) = dev_uas {
             if best.as_ref().is_none_or(|(b, _, _)| uas > *b) {
-                best = Some((uas, model.arc_weights.clone(), model.label_weights.clone()));
+                best = Some((
+                    uas,
+                    weight_table_from(model.arc_weights.iter().copied()),
+                    weight_table_from(model.label_weights.iter().copied()),
+                ));
                 since_best = 0;
             } else {
                 since_best += 1;

@@ -113,10 +113,12 @@ scrape_configs:
         print(f"decode exponents from Prometheus: {exponents}; score exponents: {score}")
         projective = exponents.get("projective", float("nan"))
         non_projective = exponents.get("non-projective", float("nan"))
-        # Issue 6 asks for [2.6, 3.4]. Our Eisner pays a fixed cost per span that dominates short
-        # sentences, so over 16-256 tokens the fitted slope is about 2.1-2.5 (pure cubic growth
-        # shows only from about 128 tokens; see README, Telemetry). The band checked here is the
-        # alert band of deploy/prometheus/rules/alerts.yml; the gap is reported, not hidden.
+        # Issue 6 asks for [2.6, 3.4]. Our Eisner's quadratic work weighs as much as its
+        # vectorized cubic loop up to about 100 tokens: counted in instructions, with no cache
+        # effects, its slope over 16-256 is 2.46 (tests/reference/measure_decode_instructions.sh),
+        # and cold caches in the service bring it to about 2.1 (README, Telemetry). The band
+        # checked here is the alert band of deploy/prometheus/rules/alerts.yml; the gap is
+        # reported, not hidden.
         if not 1.8 <= projective <= 3.4:
             failures.append(f"projective decode exponent {projective} not in [1.8, 3.4]")
         if not non_projective < min(2.5, projective):
