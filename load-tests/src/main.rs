@@ -151,7 +151,6 @@ fn rss_kib(pid: u32) -> Option<u64> {
         .ok()
 }
 
-/// Sum of `arcwright_requests_total` per api from the server's /metrics.
 /// The server's total stage time (p50, p99, in ms) for sentences in the length bucket of
 /// `words`, from `/v1/scaling` (the bucket's recent window, any decoder: the fullest).
 async fn server_compute_ms(http: &str, words: usize) -> Option<(f64, f64)> {
@@ -175,6 +174,7 @@ async fn server_compute_ms(http: &str, words: usize) -> Option<(f64, f64)> {
         })
 }
 
+/// Sum of `arcwright_requests_total` per api from the server's /metrics.
 async fn server_requests(http: &str) -> anyhow::Result<std::collections::BTreeMap<String, f64>> {
     let text = reqwest::get(format!("{http}/metrics"))
         .await?

@@ -93,11 +93,13 @@ impl Tally {
         }
     }
 
-    /// One answered request: `lag` from its scheduled to its actual send, `micros` from its
-    /// scheduled send to its answer.
-    fn record(&mut self, request: &[Sentence], lag: u64, micros: u64, outcome: Outcome) {
+    /// One answered request: `lag` from its scheduled to its actual send (none without a
+    /// schedule), `micros` from its scheduled (or actual) send to its answer.
+    fn record(&mut self, request: &[Sentence], lag: Option<u64>, micros: u64, outcome: Outcome) {
         let longest = request.iter().map(Vec::len).max().unwrap_or(1);
-        let _ = self.lag.record(lag);
+        if let Some(lag) = lag {
+            let _ = self.lag.record(lag);
+        }
         match outcome {
             Outcome::Ok(version) => {
                 self.result.ok += 1;
@@ -200,7 +202,7 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
             tally
                 .lock()
                 .expect("tally lock")
-                .record(&request, lag, micros, outcome);
+                .record(&request, Some(lag), micros, outcome);
             drop(permit);
         }));
     }
@@ -254,7 +256,7 @@ pub async fn saturate(
                 tally
                     .lock()
                     .expect("tally lock")
-                    .record(&request, 1, micros, outcome);
+                    .record(&request, None, micros, outcome);
             }
         }));
     }
