@@ -40,6 +40,7 @@ pub struct Client {
     http: reqwest::Client,
     http_base: String,
     grpc: Option<ParserClient<tonic::transport::Channel>>,
+    channel: Option<tonic::transport::Channel>,
     decoder: Option<String>,
     confidence: bool,
     model: Option<String>,
@@ -58,14 +59,14 @@ impl Client {
         decoder: Option<String>,
         confidence: bool,
     ) -> anyhow::Result<Client> {
-        let grpc = match api {
+        let channel = match api {
             Api::GrpcParse | Api::GrpcBatch | Api::GrpcStream => {
                 let channel =
                     tonic::transport::Endpoint::from_shared(format!("http://{grpc_addr}"))?
                         .tcp_nodelay(true)
                         .connect()
                         .await?;
-                Some(ParserClient::new(channel))
+                Some(channel)
             }
             _ => None,
         };
@@ -79,7 +80,8 @@ impl Client {
             http,
             http_base: http_base.trim_end_matches('/').to_string(),
             model: None,
-            grpc,
+            grpc: channel.clone().map(ParserClient::new),
+            channel,
             decoder,
             confidence,
         })
@@ -238,6 +240,120 @@ impl Client {
                     Err(status) => classify(status),
                 })
             }
+        }
+    }
+}
+
+/// What the generator reads of a Parse or ParseBatch answer: the model that answered and how
+/// many sentences (Parse) or results (ParseBatch) came back — field 2 of both messages, kept as
+/// undecoded bytes. Decoding every token of every answer would cost the generator more CPU than
+/// the numbers it checks, CPU taken from the server it shares the machine with.
+#[derive(Clone, PartialEq, prost::Message)]
+pub struct AnswerSummary {
+    #[prost(message, optional, tag = "1")]
+    pub model: Option<proto::ModelRef>,
+    #[prost(bytes = "bytes", repeated, tag = "2")]
+    pub items: Vec<bytes::Bytes>,
+}
+
+/// Sends requests already encoded (each distinct request is encoded once per run and then
+/// reused) and reads answers as [`AnswerSummary`].
+#[derive(Debug, Clone, Copy, Default)]
+struct PreEncoded;
+
+impl tonic::codec::Codec for PreEncoded {
+    type Encode = bytes::Bytes;
+    type Decode = AnswerSummary;
+    type Encoder = PreEncoded;
+    type Decoder = tonic_prost::ProstDecoder<AnswerSummary>;
+
+    fn encoder(&mut self) -> Self::Encoder {
+        PreEncoded
+    }
+
+    fn decoder(&mut self) -> Self::Decoder {
+        tonic_prost::ProstCodec::<bytes::Bytes, AnswerSummary>::default().decoder()
+    }
+}
+
+impl tonic::codec::Encoder for PreEncoded {
+    type Item = bytes::Bytes;
+    type Error = tonic::Status;
+
+    fn encode(
+        &mut self,
+        item: bytes::Bytes,
+        dst: &mut tonic::codec::EncodeBuf<'_>,
+    ) -> Result<(), tonic::Status> {
+        use bytes::BufMut;
+        dst.put_slice(&item);
+        Ok(())
+    }
+}
+
+impl Client {
+    /// The request for `sentences` encoded once, for the calls that can be sent pre-encoded
+    /// (gRPC Parse and ParseBatch); none for the others.
+    pub fn encode(&self, sentences: &[Vec<String>]) -> Option<bytes::Bytes> {
+        use prost::Message;
+        let model = self.model.clone().unwrap_or_default();
+        match self.api {
+            Api::GrpcParse => Some(
+                proto::ParseRequest {
+                    model,
+                    decoder: self.grpc_decoder(),
+                    confidence: self.confidence,
+                    input: Some(Client::input(&sentences[0])),
+                    id: String::new(),
+                }
+                .encode_to_vec()
+                .into(),
+            ),
+            Api::GrpcBatch => Some(
+                proto::ParseBatchRequest {
+                    model,
+                    decoder: self.grpc_decoder(),
+                    confidence: self.confidence,
+                    sentences: sentences.iter().map(|s| Client::input(s)).collect(),
+                }
+                .encode_to_vec()
+                .into(),
+            ),
+            _ => None,
+        }
+    }
+
+    /// Sends a request made by [`Client::encode`] for `expected` sentences (Parse) or inputs
+    /// (ParseBatch); an answer with a different count is an error.
+    pub async fn send_encoded(&self, body: bytes::Bytes, expected: usize) -> Outcome {
+        let path = match self.api {
+            Api::GrpcParse => "/arcwright.v1.Parser/Parse",
+            Api::GrpcBatch => "/arcwright.v1.Parser/ParseBatch",
+            _ => return Outcome::Error("this call cannot be sent pre-encoded".into()),
+        };
+        let Some(channel) = self.channel.clone() else {
+            return Outcome::Error("no gRPC channel".into());
+        };
+        let mut grpc = tonic::client::Grpc::new(channel);
+        if let Err(e) = grpc.ready().await {
+            return Outcome::Error(format!("channel not ready: {e}"));
+        }
+        let path = tonic::codegen::http::uri::PathAndQuery::from_static(path);
+        match grpc
+            .unary(tonic::Request::new(body), path, PreEncoded)
+            .await
+        {
+            Ok(answer) => {
+                let answer = answer.into_inner();
+                if answer.items.len() != expected {
+                    return Outcome::Error(format!(
+                        "answered {} of {expected} sentences",
+                        answer.items.len()
+                    ));
+                }
+                Outcome::Ok(answer.model.map(|m| m.version).unwrap_or_default())
+            }
+            Err(status) => classify(status),
         }
     }
 }

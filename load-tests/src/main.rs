@@ -131,6 +131,16 @@ enum Command {
         )]
         machine: String,
     },
+    /// In-process parse throughput on every core (no server): the ceiling for batch capacity.
+    Local {
+        /// Model directory.
+        #[arg(long)]
+        model_dir: PathBuf,
+        #[arg(long, default_value_t = 25)]
+        words: usize,
+        #[arg(long, default_value_t = 5.0)]
+        seconds: f64,
+    },
     /// Regenerate REPORT.md and the plots from a results.json.
     Report {
         #[arg(long)]
@@ -174,6 +184,134 @@ async fn server_compute_ms(http: &str, words: usize) -> Option<(f64, f64)> {
         })
 }
 
+/// The cumulative bucket counts of one histogram series in a Prometheus text exposition:
+/// `name` with exactly the labels `labels` (besides `le`), as (upper bound, count) pairs.
+fn histogram_buckets(text: &str, name: &str, labels: &[(&str, &str)]) -> Vec<(f64, f64)> {
+    let prefix = format!("{name}_bucket{{");
+    let mut out = Vec::new();
+    for line in text.lines().filter(|l| l.starts_with(&prefix)) {
+        let Some((inside, value)) = line[prefix.len()..].split_once("} ") else {
+            continue;
+        };
+        let mut le = None;
+        let mut matched = 0;
+        for pair in inside.split(',') {
+            let Some((key, quoted)) = pair.split_once('=') else {
+                continue;
+            };
+            let value = quoted.trim_matches('"');
+            if key == "le" {
+                le = Some(if value == "+Inf" {
+                    f64::INFINITY
+                } else {
+                    value.parse().unwrap_or(f64::NAN)
+                });
+            } else if labels.contains(&(key, value)) {
+                matched += 1;
+            } else {
+                matched = usize::MAX / 2; // a label not asked for: another series
+            }
+        }
+        if let (Some(le), Ok(count)) = (le, value.trim().parse::<f64>()) {
+            if matched == labels.len() {
+                out.push((le, count));
+            }
+        }
+    }
+    out.sort_by(|a, b| a.0.total_cmp(&b.0));
+    out
+}
+
+/// The `q` quantile (in ms) of the observations between two readings of the same histogram
+/// series, interpolating linearly within a bucket as Prometheus's `histogram_quantile` does.
+fn quantile_between(before: &[(f64, f64)], after: &[(f64, f64)], q: f64) -> Option<f64> {
+    let delta: Vec<(f64, f64)> = after
+        .iter()
+        .map(|&(le, count)| {
+            let earlier = before
+                .iter()
+                .find(|(l, _)| *l == le)
+                .map_or(0.0, |(_, c)| *c);
+            (le, count - earlier)
+        })
+        .collect();
+    let total = delta.last()?.1;
+    if total <= 0.0 {
+        return None;
+    }
+    let rank = q * total;
+    let (mut lower, mut below) = (0.0, 0.0);
+    for &(le, count) in &delta {
+        if count >= rank {
+            if le.is_infinite() {
+                return Some(lower * 1e3);
+            }
+            let share = (rank - below) / (count - below).max(1e-9);
+            return Some((lower + (le - lower) * share) * 1e3);
+        }
+        (lower, below) = (le, count);
+    }
+    None
+}
+
+/// The server's own view of a run from its /metrics before and after: p50 and p99 (ms) of the
+/// gRPC Parse request duration and of the wait for a parsing thread.
+fn server_view(before: &str, after: &str) -> Option<report::ServerView> {
+    let request = |text| {
+        histogram_buckets(
+            text,
+            "arcwright_request_duration_seconds",
+            &[("api", "grpc"), ("method", "parse")],
+        )
+    };
+    let wait = |text| histogram_buckets(text, "arcwright_queue_wait_seconds", &[]);
+    let (r0, r1, w0, w1) = (request(before), request(after), wait(before), wait(after));
+    Some(report::ServerView {
+        request_p50_ms: quantile_between(&r0, &r1, 0.5)?,
+        request_p99_ms: quantile_between(&r0, &r1, 0.99)?,
+        queue_wait_p50_ms: quantile_between(&w0, &w1, 0.5)?,
+        queue_wait_p99_ms: quantile_between(&w0, &w1, 0.99)?,
+    })
+}
+
+async fn metrics_text(http: &str) -> Option<String> {
+    reqwest::get(format!("{http}/metrics"))
+        .await
+        .ok()?
+        .text()
+        .await
+        .ok()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn quantiles_come_from_the_difference_of_two_histogram_readings() {
+        let before = "# TYPE x histogram\n\
+            x_bucket{api=\"grpc\",method=\"Parse\",le=\"0.001\"} 10\n\
+            x_bucket{api=\"grpc\",method=\"Parse\",le=\"0.002\"} 10\n\
+            x_bucket{api=\"grpc\",method=\"Parse\",le=\"+Inf\"} 10\n\
+            x_bucket{api=\"http\",method=\"Parse\",le=\"0.001\"} 99\n";
+        let after = "x_bucket{api=\"grpc\",method=\"Parse\",le=\"0.001\"} 60\n\
+            x_bucket{api=\"grpc\",method=\"Parse\",le=\"0.002\"} 110\n\
+            x_bucket{api=\"grpc\",method=\"Parse\",le=\"+Inf\"} 110\n";
+        let labels = [("api", "grpc"), ("method", "Parse")];
+        let b = histogram_buckets(before, "x", &labels);
+        let a = histogram_buckets(after, "x", &labels);
+        assert_eq!(b, vec![(0.001, 10.0), (0.002, 10.0), (f64::INFINITY, 10.0)]);
+        // 100 new observations: 50 at or below 1 ms, 50 in (1, 2] ms. The median is the top
+        // of the first bucket; the 99th percentile 49/50 of the way through the second.
+        let p50 = quantile_between(&b, &a, 0.5).expect("p50");
+        let p99 = quantile_between(&b, &a, 0.99).expect("p99");
+        assert!((p50 - 1.0).abs() < 1e-9, "{p50}");
+        assert!((p99 - 1.98).abs() < 1e-9, "{p99}");
+        assert_eq!(quantile_between(&b, &b, 0.5), None);
+        assert!(histogram_buckets(before, "x", &[("api", "grpc")]).is_empty());
+    }
+}
+
 /// Sum of `arcwright_requests_total` per api from the server's /metrics.
 async fn server_requests(http: &str) -> anyhow::Result<std::collections::BTreeMap<String, f64>> {
     let text = reqwest::get(format!("{http}/metrics"))
@@ -199,6 +337,38 @@ async fn server_requests(http: &str) -> anyhow::Result<std::collections::BTreeMa
         *out.entry(api).or_default() += value;
     }
     Ok(out)
+}
+
+/// Sentences per second parsing `sentences` in a loop on every core for `span`, with nothing
+/// else running: the ceiling the server's batch capacity is compared with. Long enough (seconds,
+/// not a burst) to be the sustained rate, not a short burst at boost clock.
+fn in_process_rate(
+    model: &arcwright_parser::model::Model,
+    sentences: &[Sentence],
+    span: Duration,
+) -> f64 {
+    let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
+    let parsed = std::sync::atomic::AtomicUsize::new(0);
+    let started = std::time::Instant::now();
+    std::thread::scope(|scope| {
+        for t in 0..threads {
+            let parsed = &parsed;
+            scope.spawn(move || {
+                let mut i = 0;
+                while started.elapsed() < span && i < 1_000_000 {
+                    std::hint::black_box(model.parse(
+                        &sentences[(i + t) % sentences.len()],
+                        None,
+                        None,
+                        None,
+                    ));
+                    i += 1;
+                }
+                parsed.fetch_add(i, std::sync::atomic::Ordering::Relaxed);
+            });
+        }
+    });
+    parsed.into_inner() as f64 / started.elapsed().as_secs_f64()
 }
 
 /// The same allocator as the service, so that the in-process figure compares like with like.
@@ -250,6 +420,16 @@ async fn main() -> anyhow::Result<()> {
                 None => openloop::run(&client, &sentences, &plan).await,
             };
             println!("{}", serde_json::to_string_pretty(&result)?);
+        }
+        Command::Local {
+            model_dir,
+            words,
+            seconds,
+        } => {
+            let model = arcwright_parser::model::Model::load(&model_dir)?;
+            let sentences = workload::demo_fixed(words, 200, 3);
+            let rate = in_process_rate(&model, &sentences, Duration::from_secs_f64(seconds));
+            println!("{}", serde_json::json!({ "sentences_per_second": rate }));
         }
         Command::Report { input, out } => {
             let suite: report::Suite = serde_json::from_str(&std::fs::read_to_string(&input)?)?;
@@ -551,7 +731,12 @@ async fn main() -> anyhow::Result<()> {
             // then hold that run's last sentences); the repeats show the machine's run-to-run
             // spread.
             if let Some(knee) = suite.knee_rate {
+                let before = metrics_text(&target.http).await;
                 let r = openloop::run(&grpc, &medium, &plan(knee / 2.0, seconds, 1)).await;
+                let after = metrics_text(&target.http).await;
+                suite.half_knee_server = before
+                    .zip(after)
+                    .and_then(|(before, after)| server_view(&before, &after));
                 generated += r.sent;
                 suite.half_knee = Some(r);
                 suite.half_knee_server_ms = server_compute_ms(&target.http, medium[0].len()).await;
@@ -561,66 +746,56 @@ async fn main() -> anyhow::Result<()> {
                     suite.half_knee_repeats.push(r);
                 }
             }
-            // Capacity: closed loop with a fixed number of batches open, then (below) the
-            // in-process rate on the same sentences, right after.
-            for (api, name) in [
-                (Api::GrpcBatch, "grpc-batch (32)"),
-                (Api::HttpBatch, "http-batch (32)"),
-            ] {
-                let client = Client::connect(api, &target.http, &target.grpc, None, false).await?;
-                let opens: &[usize] = if quick { &[4] } else { &[2, 4, 8] };
-                for &open in opens {
-                    let run = openloop::saturate(
-                        &client,
-                        &medium,
-                        32,
-                        open,
-                        Duration::from_secs_f64(if quick { 1.0 } else { 6.0 }),
-                        100_000,
-                    )
-                    .await;
-                    generated += server_requests_for(api, 32, run.sent);
-                    suite
-                        .capacity
-                        .entry(name.to_string())
-                        .or_default()
-                        .push(report::Capacity {
+            // Capacity: closed loop with a fixed number of batches open, each round followed at
+            // once by the in-process rate on the same sentences (all cores, nothing else
+            // running). The machine's speed drifts by tens of percent over minutes, so the
+            // ratio is taken within each round and the rounds' median is the figure.
+            let model = match &model_dir {
+                Some(dir) => Some(arcwright_parser::model::Model::load(dir)?),
+                None => None,
+            };
+            let rounds = if quick { 1 } else { 3 };
+            for round in 0..rounds {
+                for (api, name) in [
+                    (Api::GrpcBatch, "grpc-batch (32)"),
+                    (Api::HttpBatch, "http-batch (32)"),
+                ] {
+                    let client =
+                        Client::connect(api, &target.http, &target.grpc, None, false).await?;
+                    let opens: &[usize] = match (quick, round) {
+                        (true, _) => &[4],
+                        (false, 0) => &[2, 4, 8],
+                        (false, _) => &[8],
+                    };
+                    for &open in opens {
+                        let run = openloop::saturate(
+                            &client,
+                            &medium,
+                            32,
                             open,
-                            batch: 32,
-                            run,
-                        });
+                            Duration::from_secs_f64(if quick { 1.0 } else { 6.0 }),
+                            100_000,
+                        )
+                        .await;
+                        generated += server_requests_for(api, 32, run.sent);
+                        suite.capacity.entry(name.to_string()).or_default().push(
+                            report::Capacity {
+                                open,
+                                batch: 32,
+                                round,
+                                run,
+                            },
+                        );
+                    }
+                }
+                if let Some(model) = &model {
+                    let span = Duration::from_secs_f64(if quick { 0.5 } else { 5.0 });
+                    suite
+                        .in_process_rounds
+                        .push(in_process_rate(model, &medium, span));
                 }
             }
-            // In-process throughput of the same sentences on all cores, for the batch ratio.
-            if let Some(dir) = &model_dir {
-                let model = arcwright_parser::model::Model::load(dir)?;
-                let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
-                // Long enough (seconds, not a burst) that the figure is the sustained rate
-                // the server is compared with, not a short burst at boost clock.
-                let span = Duration::from_secs_f64(if quick { 0.5 } else { 5.0 });
-                let parsed = std::sync::atomic::AtomicUsize::new(0);
-                let started = std::time::Instant::now();
-                std::thread::scope(|scope| {
-                    for t in 0..threads {
-                        let (model, medium, parsed) = (&model, &medium, &parsed);
-                        scope.spawn(move || {
-                            let mut i = 0;
-                            while started.elapsed() < span && i < 1_000_000 {
-                                std::hint::black_box(model.parse(
-                                    &medium[(i + t) % medium.len()],
-                                    None,
-                                    None,
-                                    None,
-                                ));
-                                i += 1;
-                            }
-                            parsed.fetch_add(i, std::sync::atomic::Ordering::Relaxed);
-                        });
-                    }
-                });
-                suite.in_process_sentences_per_second =
-                    Some(parsed.into_inner() as f64 / started.elapsed().as_secs_f64());
-            }
+            suite.in_process_sentences_per_second = report::median(&suite.in_process_rounds);
             // Shedding: twice the knee.
             let knee = suite.knee_rate.unwrap_or(100.0);
             let r = openloop::run(

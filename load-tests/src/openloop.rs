@@ -5,9 +5,10 @@
 //! count and the number of requests outstanding at once.
 
 use std::collections::BTreeMap;
-use std::sync::{Arc, Mutex};
+use std::sync::{Arc, Mutex, OnceLock};
 use std::time::{Duration, Instant};
 
+use bytes::Bytes;
 use hdrhistogram::Histogram;
 use serde::Serialize;
 
@@ -70,6 +71,51 @@ pub struct RunResult {
     pub send_lag: Latency,
     pub versions: BTreeMap<String, u64>,
     pub first_errors: Vec<String>,
+    /// How the machine's CPU time went during the run (Linux), all processes together.
+    #[serde(default)]
+    pub cpu: Option<CpuShares>,
+}
+
+/// Shares of the machine's CPU time over a run, in percent, from `/proc/stat`. `steal` is time
+/// a virtual CPU was ready to run but the hypervisor ran something else: on a virtual machine
+/// it delays every wake-up in the request path, and no setting inside the machine removes it.
+#[derive(Debug, Clone, Copy, Serialize, serde::Deserialize, Default, PartialEq)]
+pub struct CpuShares {
+    pub busy: f64,
+    pub idle: f64,
+    pub steal: f64,
+}
+
+/// The machine-wide CPU time counters (user, nice, system, idle, iowait, irq, softirq, steal),
+/// in clock ticks.
+fn cpu_counters() -> Option<[u64; 8]> {
+    let stat = std::fs::read_to_string("/proc/stat").ok()?;
+    parse_cpu_line(stat.lines().next()?)
+}
+
+fn parse_cpu_line(line: &str) -> Option<[u64; 8]> {
+    let mut fields = line.strip_prefix("cpu ")?.split_whitespace();
+    let mut out = [0u64; 8];
+    for slot in &mut out {
+        *slot = fields.next()?.parse().ok()?;
+    }
+    Some(out)
+}
+
+/// The shares between two readings of `cpu_counters`.
+fn cpu_shares(before: Option<[u64; 8]>, after: Option<[u64; 8]>) -> Option<CpuShares> {
+    let (before, after) = (before?, after?);
+    let d: Vec<f64> = before
+        .iter()
+        .zip(&after)
+        .map(|(b, a)| a.saturating_sub(*b) as f64)
+        .collect();
+    let total: f64 = d.iter().sum();
+    (total > 0.0).then(|| CpuShares {
+        busy: 100.0 * (d[0] + d[1] + d[2] + d[5] + d[6]) / total,
+        idle: 100.0 * (d[3] + d[4]) / total,
+        steal: 100.0 * d[7] / total,
+    })
 }
 
 struct Tally {
@@ -93,10 +139,16 @@ impl Tally {
         }
     }
 
-    /// One answered request: `lag` from its scheduled to its actual send (none without a
-    /// schedule), `micros` from its scheduled (or actual) send to its answer.
-    fn record(&mut self, request: &[Sentence], lag: Option<u64>, micros: u64, outcome: Outcome) {
-        let longest = request.iter().map(Vec::len).max().unwrap_or(1);
+    /// One answered request of `sentences` sentences, the longest `longest` tokens long: `lag`
+    /// from its scheduled to its actual send (none without a schedule), `micros` from its
+    /// scheduled (or actual) send to its answer.
+    fn record(
+        &mut self,
+        (sentences, longest): (usize, usize),
+        lag: Option<u64>,
+        micros: u64,
+        outcome: Outcome,
+    ) {
         if let Some(lag) = lag {
             let _ = self.lag.record(lag);
         }
@@ -110,7 +162,7 @@ impl Tally {
                     .entry(bucket(longest))
                     .or_insert_with(histogram)
                     .record(micros);
-                self.result.sentences_per_second += request.len() as f64;
+                self.result.sentences_per_second += sentences as f64;
             }
             Outcome::Shed => self.result.shed += 1,
             Outcome::Error(message) => {
@@ -139,6 +191,57 @@ impl Tally {
     }
 }
 
+/// The requests of a run: `batch` consecutive sentences of the workload from a start position,
+/// wrapping around. Workloads cycle, so the same requests recur: each distinct one is encoded at
+/// most once (for the calls that can be sent pre-encoded), keeping the generator's own CPU use
+/// — taken from the server it shares the machine with — low.
+struct Requests {
+    sentences: Arc<[Sentence]>,
+    batch: usize,
+    encoded: Vec<OnceLock<Option<Bytes>>>,
+}
+
+impl Requests {
+    fn new(sentences: &[Sentence], batch: usize) -> Arc<Requests> {
+        Arc::new(Requests {
+            sentences: sentences.into(),
+            batch: batch.max(1),
+            encoded: (0..sentences.len()).map(|_| OnceLock::new()).collect(),
+        })
+    }
+
+    fn sentences(&self, start: usize) -> Vec<Sentence> {
+        (0..self.batch)
+            .map(|i| self.sentences[(start + i) % self.sentences.len()].clone())
+            .collect()
+    }
+
+    /// (sentences, tokens in the longest) of the request at `start`.
+    fn shape(&self, start: usize) -> (usize, usize) {
+        let longest = (0..self.batch)
+            .map(|i| self.sentences[(start + i) % self.sentences.len()].len())
+            .max()
+            .unwrap_or(1);
+        (self.batch, longest)
+    }
+
+    async fn send(&self, client: &Client, start: usize) -> Outcome {
+        let start = start % self.sentences.len();
+        match self.encoded[start].get_or_init(|| client.encode(&self.sentences(start))) {
+            Some(body) => client.send_encoded(body.clone(), self.batch).await,
+            None => client.send(&self.sentences(start)).await,
+        }
+    }
+}
+
+fn no_sentences(rate: f64) -> RunResult {
+    RunResult {
+        offered_rate: rate,
+        first_errors: vec!["the workload has no sentences".to_string()],
+        ..RunResult::default()
+    }
+}
+
 /// Microseconds since `instant`, within the histograms' bounds.
 fn micros_since(instant: Instant) -> u64 {
     instant.elapsed().as_micros().clamp(1, 600_000_000) as u64
@@ -146,6 +249,11 @@ fn micros_since(instant: Instant) -> u64 {
 
 /// Runs the plan against `client`, cycling through `sentences`.
 pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunResult {
+    if sentences.is_empty() {
+        return no_sentences(plan.rate);
+    }
+    let requests = Requests::new(sentences, plan.batch);
+    let counters = cpu_counters();
     let tally = Arc::new(Mutex::new(Tally::new()));
     let outstanding = Arc::new(tokio::sync::Semaphore::new(plan.max_outstanding));
     let interval = Duration::from_secs_f64(1.0 / plan.rate.max(0.001));
@@ -189,20 +297,20 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
             skipped += 1;
             continue;
         };
-        let request: Vec<Sentence> = (0..plan.batch)
-            .map(|i| sentences[(index + i) % sentences.len()].clone())
-            .collect();
+        let start = index % sentences.len();
         index += plan.batch;
         sent += 1;
-        let (client, tally) = (client.clone(), tally.clone());
+        let (client, tally, requests) = (client.clone(), tally.clone(), requests.clone());
         tasks.push(tokio::spawn(async move {
             let lag = micros_since(scheduled);
-            let outcome = client.send(&request).await;
+            let outcome = requests.send(&client, start).await;
             let micros = micros_since(scheduled);
-            tally
-                .lock()
-                .expect("tally lock")
-                .record(&request, Some(lag), micros, outcome);
+            tally.lock().expect("tally lock").record(
+                requests.shape(start),
+                Some(lag),
+                micros,
+                outcome,
+            );
             drop(permit);
         }));
     }
@@ -213,6 +321,7 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
     let mut result = tally.lock().expect("tally lock").finish(seconds, sent);
     result.offered_rate = plan.rate;
     result.client_overloaded = skipped;
+    result.cpu = cpu_shares(counters, cpu_counters());
     result
 }
 
@@ -229,34 +338,38 @@ pub async fn saturate(
     duration: Duration,
     max_requests: usize,
 ) -> RunResult {
+    if sentences.is_empty() {
+        return no_sentences(0.0);
+    }
+    let requests = Requests::new(sentences, batch);
+    let counters = cpu_counters();
     let tally = Arc::new(Mutex::new(Tally::new()));
     let issued = Arc::new(std::sync::atomic::AtomicUsize::new(0));
-    let sentences: Arc<[Sentence]> = sentences.into();
     let started = Instant::now();
     let mut tasks = Vec::new();
     for worker in 0..concurrency.max(1) {
-        let (client, tally, issued, sentences) = (
+        let (client, tally, issued, requests) = (
             client.clone(),
             tally.clone(),
             issued.clone(),
-            sentences.clone(),
+            requests.clone(),
         );
         tasks.push(tokio::spawn(async move {
             let mut index = worker * batch;
             while started.elapsed() < duration
                 && issued.fetch_add(1, std::sync::atomic::Ordering::Relaxed) < max_requests
             {
-                let request: Vec<Sentence> = (0..batch)
-                    .map(|i| sentences[(index + i) % sentences.len()].clone())
-                    .collect();
+                let start = index % requests.sentences.len();
                 index += batch * concurrency;
                 let sent_at = Instant::now();
-                let outcome = client.send(&request).await;
+                let outcome = requests.send(&client, start).await;
                 let micros = micros_since(sent_at);
-                tally
-                    .lock()
-                    .expect("tally lock")
-                    .record(&request, None, micros, outcome);
+                tally.lock().expect("tally lock").record(
+                    requests.shape(start),
+                    None,
+                    micros,
+                    outcome,
+                );
             }
         }));
     }
@@ -266,5 +379,28 @@ pub async fn saturate(
     let seconds = started.elapsed().as_secs_f64();
     let t = tally.lock().expect("tally lock");
     // Every request sent was awaited, so each has exactly one outcome.
-    t.finish(seconds, t.result.ok + t.result.shed + t.result.errors)
+    let mut result = t.finish(seconds, t.result.ok + t.result.shed + t.result.errors);
+    result.cpu = cpu_shares(counters, cpu_counters());
+    result
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn cpu_shares_come_from_the_differences_of_two_readings() {
+        // Format of /proc/stat's first line (proc(5)): user nice system idle iowait irq softirq
+        // steal guest guest_nice, in clock ticks.
+        let before = parse_cpu_line("cpu  100 0 50 800 10 0 5 20 0 0");
+        let after = parse_cpu_line("cpu  160 0 70 900 10 0 10 45 0 0");
+        let shares = cpu_shares(before, after).expect("shares");
+        // Differences: busy 60+20+5 = 85, idle 100, steal 25, of 210 ticks.
+        assert!((shares.busy - 100.0 * 85.0 / 210.0).abs() < 1e-9);
+        assert!((shares.idle - 100.0 * 100.0 / 210.0).abs() < 1e-9);
+        assert!((shares.steal - 100.0 * 25.0 / 210.0).abs() < 1e-9);
+        assert_eq!(parse_cpu_line("cpu0 1 2 3 4 5 6 7 8"), None);
+        assert_eq!(parse_cpu_line("cpu  1 2 3"), None);
+        assert_eq!(cpu_shares(before, before), None);
+    }
 }

@@ -130,6 +130,15 @@ scrape_configs:
         present = {b for b, v in buckets if v == v}  # not NaN
         if not expected <= present:
             failures.append(f"per-bucket p99 missing for {expected - present}")
+        # The server's own request histogram counts every request this check sent (the first
+        # one included), and every one of them waited for a parsing thread once.
+        counted = query('sum(arcwright_request_duration_seconds_count{api="http", method="parse"})')
+        waits = query('sum(arcwright_queue_wait_seconds_count)')
+        n_counted = float(counted[0]["value"][1]) if counted else -1
+        n_waits = float(waits[0]["value"][1]) if waits else -1
+        print(f"request duration count {n_counted:.0f}, queue waits {n_waits:.0f}, requests sent {sent + 1}")
+        if n_counted != sent + 1 or n_waits != sent + 1:
+            failures.append(f"request/queue-wait histograms count {n_counted}/{n_waits}, not the {sent + 1} requests sent")
     finally:
         prometheus.terminate()
         serve.terminate()
@@ -137,7 +146,7 @@ scrape_configs:
         serve.wait(timeout=30)
     for f in failures:
         print("FAIL", f, file=sys.stderr)
-    print(f"{4 - len(failures)} passed, {len(failures)} failed")
+    print(f"{5 - len(failures)} passed, {len(failures)} failed")
     print(f"issue 6's band [2.6, 3.4] for the projective decode exponent: {'met' if 2.6 <= projective <= 3.4 else 'NOT met'} ({projective:.2f})")
     return 1 if failures else 0
 

@@ -93,32 +93,34 @@ fn decoder(name: Option<&str>) -> Result<Option<Algorithm>, ApiError> {
 
 impl Engine {
     /// Validates the job and splits it into sentences (no model needed yet).
-    fn validate(&self, job: &ParseJob) -> Result<Vec<Work>, ApiError> {
+    /// Checks every input against the limits and turns it into sentences to parse, taking the
+    /// tokens over rather than copying them.
+    fn validate(&self, inputs: Vec<SentenceInput>) -> Result<Vec<Work>, ApiError> {
         let limits = &self.limits;
-        if job.inputs.is_empty() {
+        let batch = inputs.len() > 1;
+        if inputs.is_empty() {
             return Err(ApiError::invalid("empty_batch", "no sentences given"));
         }
-        if job.inputs.len() > limits.max_sentences {
+        if inputs.len() > limits.max_sentences {
             return Err(ApiError::invalid(
                 "batch_too_large",
                 format!(
                     "{} sentences in the batch; the limit is {}",
-                    job.inputs.len(),
+                    inputs.len(),
                     limits.max_sentences
                 ),
             ));
         }
-        let mut work = Vec::new();
-        for (index, input) in job.inputs.iter().enumerate() {
-            let at = if job.inputs.len() > 1 {
-                format!("sentence {index}: ")
-            } else {
-                String::new()
-            };
+        let mut work = Vec::with_capacity(inputs.len());
+        for (index, input) in inputs.into_iter().enumerate() {
             let invalid = |code: &'static str, message: String| {
-                ApiError::invalid(code, format!("{at}{message}"))
+                if batch {
+                    ApiError::invalid(code, format!("sentence {index}: {message}"))
+                } else {
+                    ApiError::invalid(code, message)
+                }
             };
-            match (&input.text, &input.tokens) {
+            match (input.text, input.tokens) {
                 (Some(_), Some(_)) => {
                     return Err(invalid(
                         "text_and_tokens",
@@ -133,13 +135,13 @@ impl Engine {
                             "tags can only be given with tokens".into(),
                         ));
                     }
-                    if let Some(c) = has_control(text, true) {
+                    if let Some(c) = has_control(&text, true) {
                         return Err(invalid(
                             "control_character",
                             format!("text contains the control character {c:?}"),
                         ));
                     }
-                    let sentences = tokenize::sentences(text);
+                    let sentences = tokenize::sentences(&text);
                     if sentences.is_empty() {
                         return Err(invalid("empty_text", "text has no words".into()));
                     }
@@ -220,8 +222,8 @@ impl Engine {
                     }
                     work.push(Work {
                         input: index,
-                        forms: tokens.clone(),
-                        tags: input.tags.clone(),
+                        forms: tokens,
+                        tags: input.tags,
                     });
                 }
             }
@@ -238,7 +240,13 @@ impl Engine {
         api: &str,
         method: &str,
     ) -> Result<ParseOutcome, ApiError> {
+        let started = Instant::now();
         let result = self.parse_inner(job, deadline, api).await;
+        if result.is_ok() {
+            metrics::REQUEST_DURATION
+                .with_label_values(&[api, method])
+                .observe(started.elapsed().as_secs_f64());
+        }
         let code = match &result {
             Ok(_) => "ok",
             Err(e) => e.code,
@@ -271,16 +279,20 @@ impl Engine {
         metrics::IN_FLIGHT.inc();
         let _in_flight = scopeguard(|| metrics::IN_FLIGHT.dec());
         let served: Arc<Served> = self.registry.snapshot(job.model.as_deref())?;
-        let tokenize_started = Instant::now();
-        let work = self.validate(&job)?;
-        let tokenize_seconds = tokenize_started.elapsed().as_secs_f64();
         let inputs = job.inputs.len();
         let confidence = job.confidence;
+        let tokenize_started = Instant::now();
+        let work = self.validate(job.inputs)?;
+        // Each sentence's share of the request's checking and tokenizing, so that a batch's
+        // sentences do not each report the whole batch's time.
+        let tokenize_seconds = tokenize_started.elapsed().as_secs_f64() / work.len().max(1) as f64;
         let (sender, receiver) = tokio::sync::oneshot::channel();
         let snapshot = served.clone();
         let cutoff = started + deadline;
         let span = tracing::Span::current();
+        let queued = Instant::now();
         self.pool.spawn(move || {
+            metrics::QUEUE_WAIT.observe(queued.elapsed().as_secs_f64());
             let _request = span.enter(); // stage spans on the pool belong to the request's span
             use rayon::prelude::*;
             let parsed: Vec<Option<(usize, Vec<TokenOut>)>> = work
