@@ -141,6 +141,12 @@ enum Command {
         #[arg(long, default_value_t = 5.0)]
         seconds: f64,
     },
+    /// How late a sleeping thread wakes on this machine (run it with nothing else running):
+    /// the floor under every hop of a request's latency.
+    Probe {
+        #[arg(long, default_value_t = 5.0)]
+        seconds: f64,
+    },
     /// Regenerate REPORT.md and the plots from a results.json.
     Report {
         #[arg(long)]
@@ -430,6 +436,11 @@ async fn main() -> anyhow::Result<()> {
             let sentences = workload::demo_fixed(words, 200, 3);
             let rate = in_process_rate(&model, &sentences, Duration::from_secs_f64(seconds));
             println!("{}", serde_json::json!({ "sentences_per_second": rate }));
+        }
+        Command::Probe { seconds } => {
+            let span = Duration::from_secs_f64(seconds.clamp(0.0, 60.0));
+            let lateness = tokio::task::spawn_blocking(move || openloop::wake_probe(span)).await?;
+            println!("{}", serde_json::to_string_pretty(&lateness)?);
         }
         Command::Report { input, out } => {
             let suite: report::Suite = serde_json::from_str(&std::fs::read_to_string(&input)?)?;
@@ -731,6 +742,12 @@ async fn main() -> anyhow::Result<()> {
             // then hold that run's last sentences); the repeats show the machine's run-to-run
             // spread.
             if let Some(knee) = suite.knee_rate {
+                // First the machine's own wake-up lateness with nothing else running.
+                let span = Duration::from_secs_f64(if quick { 1.0 } else { 5.0 });
+                suite.wake_probe_idle =
+                    tokio::task::spawn_blocking(move || openloop::wake_probe(span))
+                        .await
+                        .ok();
                 let before = metrics_text(&target.http).await;
                 let r = openloop::run(&grpc, &medium, &plan(knee / 2.0, seconds, 1)).await;
                 let after = metrics_text(&target.http).await;

@@ -35,6 +35,10 @@ pub struct Suite {
     /// half-knee run, from `/v1/scaling`: the part of the latency spent computing.
     #[serde(default)]
     pub half_knee_server_ms: Option<(f64, f64)>,
+    /// A thread's wake-up lateness with nothing else running (`openloop::wake_probe`), measured
+    /// just before the half-knee runs.
+    #[serde(default)]
+    pub wake_probe_idle: Option<crate::openloop::Latency>,
     /// The server's own latency for the first half-knee run, from its /metrics.
     #[serde(default)]
     pub half_knee_server: Option<ServerView>,
@@ -347,6 +351,20 @@ pub fn markdown(s: &Suite) -> String {
                     fmt(v.request_p99_ms),
                     fmt(v.queue_wait_p50_ms),
                     fmt(v.queue_wait_p99_ms)
+                );
+            }
+            if let Some(w) = &s.wake_probe_idle {
+                let _ = writeln!(
+                    out,
+                    "  - the machine's floor: a thread sleeping until each next millisecond, with \
+                     nothing else running, woke late by p50 {} ms, p99 {} ms, max {} ms ({} \
+                     wake-ups, just before these runs); a request's path holds at least five \
+                     such wake-ups (generator, network thread, parsing thread, network thread, \
+                     generator)",
+                    fmt(w.p50_ms),
+                    fmt(w.p99_ms),
+                    fmt(w.max_ms),
+                    w.count
                 );
             }
             if let Some(cpu) = r.cpu {
