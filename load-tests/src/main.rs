@@ -201,6 +201,7 @@ fn histogram_buckets(text: &str, name: &str, labels: &[(&str, &str)]) -> Vec<(f6
         };
         let mut le = None;
         let mut matched = 0;
+        let mut other_labels = false;
         for pair in inside.split(',') {
             let Some((key, quoted)) = pair.split_once('=') else {
                 continue;
@@ -215,13 +216,14 @@ fn histogram_buckets(text: &str, name: &str, labels: &[(&str, &str)]) -> Vec<(f6
             } else if labels.contains(&(key, value)) {
                 matched += 1;
             } else {
-                matched = usize::MAX / 2; // a label not asked for: another series
+                other_labels = true; // another series of the same histogram
             }
         }
-        if let (Some(le), Ok(count)) = (le, value.trim().parse::<f64>()) {
-            if matched == labels.len() {
-                out.push((le, count));
-            }
+        if let (Some(le), Ok(count)) = (le, value.trim().parse::<f64>())
+            && matched == labels.len()
+            && !other_labels
+        {
+            out.push((le, count));
         }
     }
     out.sort_by(|a, b| a.0.total_cmp(&b.0));
