@@ -78,7 +78,7 @@ pub struct RunResult {
 
 /// Shares of the machine's CPU time over a run, in percent, from `/proc/stat`. `steal` is time
 /// a virtual CPU was ready to run but the hypervisor ran something else: on a virtual machine
-/// it delays every wake-up in the request path, and no setting inside the machine removes it.
+/// it delays every wake-up in the request path, and nothing inside the machine controls it.
 #[derive(Debug, Clone, Copy, Serialize, serde::Deserialize, Default, PartialEq)]
 pub struct CpuShares {
     pub busy: f64,

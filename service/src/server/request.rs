@@ -92,9 +92,8 @@ fn decoder(name: Option<&str>) -> Result<Option<Algorithm>, ApiError> {
 }
 
 impl Engine {
-    /// Validates the job and splits it into sentences (no model needed yet).
-    /// Checks every input against the limits and turns it into sentences to parse, taking the
-    /// tokens over rather than copying them.
+    /// Checks every input against the limits and splits it into sentences to parse (no model
+    /// needed yet), taking the tokens over rather than copying them.
     fn validate(&self, inputs: Vec<SentenceInput>) -> Result<Vec<Work>, ApiError> {
         let limits = &self.limits;
         let batch = inputs.len() > 1;
