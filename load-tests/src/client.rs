@@ -39,7 +39,6 @@ pub struct Client {
     api: Api,
     http: reqwest::Client,
     http_base: String,
-    grpc: Option<ParserClient<tonic::transport::Channel>>,
     channel: Option<tonic::transport::Channel>,
     decoder: Option<String>,
     confidence: bool,
@@ -80,7 +79,6 @@ impl Client {
             http,
             http_base: http_base.trim_end_matches('/').to_string(),
             model: None,
-            grpc: channel.clone().map(ParserClient::new),
             channel,
             decoder,
             confidence,
@@ -152,10 +150,11 @@ impl Client {
                 ))
             }
             Api::GrpcParse | Api::GrpcBatch | Api::GrpcStream => {
-                let mut client = self
-                    .grpc
-                    .clone()
-                    .ok_or_else(|| anyhow!("no gRPC channel"))?;
+                let mut client = ParserClient::new(
+                    self.channel
+                        .clone()
+                        .ok_or_else(|| anyhow!("no gRPC channel"))?,
+                );
                 let result = match self.api {
                     Api::GrpcParse => client
                         .parse(proto::ParseRequest {

@@ -200,12 +200,8 @@ fn histogram_buckets(text: &str, name: &str, labels: &[(&str, &str)]) -> Vec<(f6
             continue;
         };
         let mut le = None;
-        let mut matched = 0;
-        let mut other_labels = false;
-        for pair in inside.split(',') {
-            let Some((key, quoted)) = pair.split_once('=') else {
-                continue;
-            };
+        let mut others = Vec::new();
+        for (key, quoted) in inside.split(',').filter_map(|pair| pair.split_once('=')) {
             let value = quoted.trim_matches('"');
             if key == "le" {
                 le = Some(if value == "+Inf" {
@@ -213,16 +209,12 @@ fn histogram_buckets(text: &str, name: &str, labels: &[(&str, &str)]) -> Vec<(f6
                 } else {
                     value.parse().unwrap_or(f64::NAN)
                 });
-            } else if labels.contains(&(key, value)) {
-                matched += 1;
             } else {
-                other_labels = true; // another series of the same histogram
+                others.push((key, value));
             }
         }
-        if let (Some(le), Ok(count)) = (le, value.trim().parse::<f64>())
-            && matched == labels.len()
-            && !other_labels
-        {
+        let same_series = others.len() == labels.len() && labels.iter().all(|l| others.contains(l));
+        if let (Some(le), Ok(count), true) = (le, value.trim().parse::<f64>(), same_series) {
             out.push((le, count));
         }
     }
@@ -322,10 +314,9 @@ mod tests {
 
 /// Sum of `arcwright_requests_total` per api from the server's /metrics.
 async fn server_requests(http: &str) -> anyhow::Result<std::collections::BTreeMap<String, f64>> {
-    let text = reqwest::get(format!("{http}/metrics"))
-        .await?
-        .text()
-        .await?;
+    let text = metrics_text(http)
+        .await
+        .ok_or_else(|| anyhow::anyhow!("could not read {http}/metrics"))?;
     let mut out = std::collections::BTreeMap::new();
     for line in text
         .lines()

@@ -210,26 +210,23 @@ impl Requests {
         })
     }
 
-    fn sentences(&self, start: usize) -> Vec<Sentence> {
-        (0..self.batch)
-            .map(|i| self.sentences[(start + i) % self.sentences.len()].clone())
-            .collect()
+    /// The sentences of the request starting at position `start` (any value: it wraps).
+    fn members(&self, start: usize) -> impl Iterator<Item = &Sentence> {
+        (0..self.batch).map(move |i| &self.sentences[(start + i) % self.sentences.len()])
     }
 
     /// (sentences, tokens in the longest) of the request at `start`.
     fn shape(&self, start: usize) -> (usize, usize) {
-        let longest = (0..self.batch)
-            .map(|i| self.sentences[(start + i) % self.sentences.len()].len())
-            .max()
-            .unwrap_or(1);
+        let longest = self.members(start).map(Vec::len).max().unwrap_or(1);
         (self.batch, longest)
     }
 
     async fn send(&self, client: &Client, start: usize) -> Outcome {
-        let start = start % self.sentences.len();
-        match self.encoded[start].get_or_init(|| client.encode(&self.sentences(start))) {
+        let owned = || self.members(start).cloned().collect::<Vec<_>>();
+        let slot = &self.encoded[start % self.sentences.len()];
+        match slot.get_or_init(|| client.encode(&owned())) {
             Some(body) => client.send_encoded(body.clone(), self.batch).await,
-            None => client.send(&self.sentences(start)).await,
+            None => client.send(&owned()).await,
         }
     }
 }
@@ -260,9 +257,9 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
     let started = Instant::now();
     // The schedule is kept by a thread of its own sleeping on the OS clock with no timer slack
     // (typically tens of microseconds late; `wake_probe` measures the machine's tail), not by
-    // the async runtime's timer, whose 1 ms ticks would make
-    // every request up to a millisecond late — lateness that the latency, measured from the
-    // scheduled time, would then charge to the server.
+    // the async runtime's timer, whose 1 ms ticks would make every request up to a millisecond
+    // late — lateness that the latency, measured from the scheduled time, would then charge to
+    // the server.
     let (ticks, mut due) = tokio::sync::mpsc::unbounded_channel::<Instant>();
     let (duration, max_ticks) = (plan.duration, plan.max_requests);
     let pacer = std::thread::Builder::new()
@@ -299,7 +296,7 @@ pub async fn run(client: &Client, sentences: &[Sentence], plan: &Plan) -> RunRes
             skipped += 1;
             continue;
         };
-        let start = index % sentences.len();
+        let start = index;
         index += plan.batch;
         sent += 1;
         let (client, tally, requests) = (client.clone(), tally.clone(), requests.clone());
@@ -361,7 +358,7 @@ pub async fn saturate(
             while started.elapsed() < duration
                 && issued.fetch_add(1, std::sync::atomic::Ordering::Relaxed) < max_requests
             {
-                let start = index % requests.sentences.len();
+                let start = index;
                 index += batch * concurrency;
                 let sent_at = Instant::now();
                 let outcome = requests.send(&client, start).await;

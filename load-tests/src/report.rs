@@ -353,6 +353,16 @@ pub fn markdown(s: &Suite) -> String {
                     fmt(v.queue_wait_p99_ms)
                 );
             }
+            if let Some((p50, p99)) = s.half_knee_server_ms {
+                let _ = writeln!(
+                    out,
+                    "  - of which computing (the server's own total stage time for these sentences, \
+                     `/v1/scaling`): p50 {} ms, p99 {} ms; the rest is transport, queueing and \
+                     scheduling on the shared cores",
+                    fmt(p50),
+                    fmt(p99)
+                );
+            }
             if let Some(w) = &s.wake_probe_idle {
                 let _ = writeln!(
                     out,
@@ -374,16 +384,6 @@ pub fn markdown(s: &Suite) -> String {
                      {:.0}% stolen by the hypervisor (a virtual CPU ready to run but not running: \
                      each such wait lands on some request's latency)",
                     cpu.busy, cpu.idle, cpu.steal
-                );
-            }
-            if let Some((p50, p99)) = s.half_knee_server_ms {
-                let _ = writeln!(
-                    out,
-                    "  - of which computing (the server's own total stage time for these sentences, \
-                     `/v1/scaling`): p50 {} ms, p99 {} ms; the rest is transport, queueing and \
-                     scheduling on the shared cores",
-                    fmt(p50),
-                    fmt(p99)
                 );
             }
         }

@@ -95,11 +95,11 @@ fn read_f32(path: &Path, expected: usize) -> Result<Vec<f32>, ModelError> {
             ),
         });
     }
-    let mut table = crate::perceptron::weight_table(expected);
-    for (weight, c) in table.iter_mut().zip(bytes.chunks_exact(4)) {
-        *weight = f32::from_le_bytes([c[0], c[1], c[2], c[3]]);
-    }
-    Ok(table)
+    Ok(crate::perceptron::weight_table_from(
+        bytes
+            .chunks_exact(4)
+            .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]])),
+    ))
 }
 
 impl Model {
