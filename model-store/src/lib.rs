@@ -32,4 +32,4 @@ pub use manifest::{FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
 pub use names::{validate_name, validate_version};
 pub use objects::{ObjectUrl, join_url};
 pub use store::{AliasRecord, Store, StoreError, VersionSummary};
-pub use watch::AliasWatcher;
+pub use watch::{AliasFeed, AliasWatcher, Backoff, MAX_BACKOFF_FACTOR};

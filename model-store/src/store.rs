@@ -223,6 +223,17 @@ impl Store {
         })
     }
 
+    /// A store over any object store (for tests that need a backend that fails on demand).
+    /// `conditional`: the backend supports create-only and compare-and-swap puts.
+    pub fn from_objects(objects: Arc<dyn ObjectStore>, url: &str, conditional: bool) -> Store {
+        Store {
+            objects,
+            root: Path::default(),
+            url: url.to_string(),
+            conditional,
+        }
+    }
+
     pub fn url(&self) -> &str {
         &self.url
     }

@@ -11,6 +11,7 @@ use std::time::Duration;
 use arcwright_parser::decode::{self, Algorithm, RootConstraint};
 use arcwright_parser::demo;
 use arcwright_parser::model::Model;
+use arcwright_parser::scorer::LinearScorer;
 use arcwright_parser::train::{self, Example, TrainOptions};
 use criterion::{BenchmarkId, Criterion};
 
@@ -58,8 +59,10 @@ fn main() {
             .as_ref()
             .map(|t| t.tag(&forms))
             .unwrap_or_default();
-        let features = model.sentence_features(&forms, &tags, &morph);
-        let scores = Model::arc_scores(&features, &model.arc_weights, model.features.hash_bits);
+        let linear = model.linear();
+        let features = linear.sentence_features(&forms, &tags, &morph);
+        let scores =
+            LinearScorer::arc_scores(&features, &linear.arc_weights, linear.features.hash_bits);
         let heads =
             decode::decode(&scores, Algorithm::Projective, RootConstraint::SingleRoot).heads;
         group.bench_with_input(BenchmarkId::new("tag", n), &n, |b, _| {
@@ -71,11 +74,11 @@ fn main() {
         });
         group.bench_with_input(BenchmarkId::new("score", n), &n, |b, _| {
             b.iter(|| {
-                let f = model.sentence_features(black_box(&forms), &tags, &morph);
-                black_box(Model::arc_scores(
+                let f = linear.sentence_features(black_box(&forms), &tags, &morph);
+                black_box(LinearScorer::arc_scores(
                     &f,
-                    &model.arc_weights,
-                    model.features.hash_bits,
+                    &linear.arc_weights,
+                    linear.features.hash_bits,
                 ))
             })
         });
@@ -98,13 +101,13 @@ fn main() {
             b.iter(|| {
                 let labels: Vec<usize> = (1..=n)
                     .map(|m| {
-                        Model::best_label(
+                        LinearScorer::best_label(
                             &features,
                             heads[m],
                             m,
-                            &model.label_weights,
-                            model.label_bits,
-                            model.labels.len(),
+                            &linear.label_weights,
+                            linear.label_bits,
+                            linear.labels.len(),
                         )
                     })
                     .collect();

@@ -12,6 +12,8 @@ pub mod features;
 pub mod marginals;
 pub mod model;
 pub mod perceptron;
+pub mod pipeline;
+pub mod scorer;
 pub mod tagger;
 pub mod text;
 pub mod tokenize;

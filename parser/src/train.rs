@@ -16,6 +16,7 @@ use crate::decode::{self, Algorithm, RootConstraint, is_projective};
 use crate::features::{FeatureConfig, mix};
 use crate::model::Model;
 use crate::perceptron::{self, Trainee, weight_table, weight_table_from};
+use crate::scorer::{ArcScorer, LinearScorer};
 use crate::tagger::Tagger;
 use crate::text;
 
@@ -190,12 +191,14 @@ pub fn train(
         train
     };
     let mut model = Model {
-        features: options.features,
-        tags,
-        labels,
-        label_bits: options.label_bits,
-        arc_weights: weight_table(1 << options.features.hash_bits),
-        label_weights: weight_table(1 << options.label_bits),
+        scorer: ArcScorer::Linear(LinearScorer {
+            features: options.features,
+            tags,
+            labels,
+            label_bits: options.label_bits,
+            arc_weights: weight_table(1 << options.features.hash_bits),
+            label_weights: weight_table(1 << options.label_bits),
+        }),
         tagger,
         morph_tagger,
         default_decoder: decoder,
@@ -203,6 +206,7 @@ pub fn train(
     };
     let label_index = |label: &str| {
         model
+            .linear()
             .labels
             .binary_search_by(|l| l.as_str().cmp(label))
             .unwrap_or(0)
@@ -287,8 +291,10 @@ pub fn train(
             *sum += x;
         }
         let scale = 1.0 / epoch as f32;
-        model.arc_weights = weight_table_from(average_sum_arcs.iter().map(|x| x * scale));
-        model.label_weights = weight_table_from(average_sum_labels.iter().map(|x| x * scale));
+        model.linear_mut().arc_weights =
+            weight_table_from(average_sum_arcs.iter().map(|x| x * scale));
+        model.linear_mut().label_weights =
+            weight_table_from(average_sum_labels.iter().map(|x| x * scale));
         let dev_uas = (!dev.is_empty()).then(|| dev_attachment(&model, dev, decoder));
         let report = EpochReport {
             epoch,
@@ -301,8 +307,8 @@ pub fn train(
             if best.as_ref().is_none_or(|(b, _, _)| uas > *b) {
                 best = Some((
                     uas,
-                    weight_table_from(model.arc_weights.iter().copied()),
-                    weight_table_from(model.label_weights.iter().copied()),
+                    weight_table_from(model.linear().arc_weights.iter().copied()),
+                    weight_table_from(model.linear().label_weights.iter().copied()),
                 ));
                 since_best = 0;
             } else {
@@ -318,8 +324,8 @@ pub fn train(
         }
     }
     if let Some((_, arcs, labels)) = best {
-        model.arc_weights = arcs;
-        model.label_weights = labels;
+        model.linear_mut().arc_weights = arcs;
+        model.linear_mut().label_weights = labels;
     }
     model
 }
@@ -410,8 +416,9 @@ fn train_shard(
     decoder: Algorithm,
     update: Update,
 ) -> (Trainee, Trainee, usize, usize) {
-    let bits = model.features.hash_bits;
-    let label_bits = model.label_bits;
+    let linear = model.linear();
+    let bits = linear.features.hash_bits;
+    let label_bits = linear.label_bits;
     let mut arc_trainee = Trainee::from_weights(bits, arcs);
     let mut label_trainee = Trainee::from_weights(label_bits, labels);
     let (mut errors, mut tokens) = (0, 0);
@@ -420,8 +427,8 @@ fn train_shard(
         let example = &train[index];
         arc_trainee.tick();
         label_trainee.tick();
-        let features = model.sentence_features(&example.forms, &example.tags, &example.morph);
-        let scores = Model::arc_scores(&features, &arc_trainee.weights, bits);
+        let features = linear.sentence_features(&example.forms, &example.tags, &example.morph);
+        let scores = LinearScorer::arc_scores(&features, &arc_trainee.weights, bits);
         let predicted = decode::decode(&scores, decoder, RootConstraint::SingleRoot).heads;
         let wrong: Vec<usize> = (1..example.heads.len())
             .filter(|&m| example.heads[m] != predicted[m])
@@ -470,13 +477,13 @@ fn train_shard(
             let gold = example.heads[m];
             // Labeler: trained on the gold arcs.
             let truth = label_ids[index][m - 1];
-            let guess_label = Model::best_label(
+            let guess_label = LinearScorer::best_label(
                 &features,
                 gold,
                 m,
                 &label_trainee.weights,
                 label_bits,
-                model.labels.len(),
+                linear.labels.len(),
             );
             if guess_label != truth {
                 hashes.clear();
@@ -501,9 +508,9 @@ fn dev_attachment(model: &Model, dev: &[Example], decoder: Algorithm) -> f64 {
             Some(&example.morph),
             Some(decoder),
         );
-        for (i, &head) in parsed.heads.iter().enumerate() {
+        for (word, head) in parsed.heads.arcs() {
             total += 1;
-            correct += usize::from(head == example.heads[i + 1]);
+            correct += usize::from(head == example.heads[word]);
         }
     }
     100.0 * correct as f64 / total.max(1) as f64

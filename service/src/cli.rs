@@ -55,7 +55,7 @@ pub struct HealthOptions {
 #[derive(Debug, Args)]
 pub struct StoreOptions {
     /// Store URL: a path, file:///abs/path, or s3://bucket/prefix (AWS_* variables for S3).
-    #[arg(long, global = true, default_value = "./model-store")]
+    #[arg(long, global = true, env = "ARCWRIGHT_STORE", default_value = crate::server::config::DEFAULT_STORE)]
     pub store: String,
     #[command(subcommand)]
     pub action: StoreAction,
@@ -236,8 +236,13 @@ pub struct ParseOptions {
     /// Where models taken from a store are kept after verification.
     #[arg(long, default_value = ".cache/models")]
     pub cache: PathBuf,
+    /// Decoder (default: the one the model was trained for).
     #[arg(long, value_enum)]
     pub decoder: Option<AlgorithmArg>,
+    /// Also write each arc's marginal probability into MISC as `ArcConfidence=P` (the same
+    /// figure the service's `confidence` option returns).
+    #[arg(long)]
+    pub confidence: bool,
     #[arg(long, value_enum, default_value = "conllu")]
     pub input: InputFormat,
     /// Parse the files listed in this file (a path or URL; one input path or URL per line,

@@ -48,7 +48,10 @@ fn main() -> ExitCode {
 fn serve(args: &server::config::ServeArgs) -> Result<(), commands::Failure> {
     let config = args.validate().map_err(commands::Failure::bad_input)?;
     if args.check_config {
-        println!("{config:#?}");
+        print!("{}", args.to_settings_file());
+        if config.admin_token.is_some() {
+            println!("# admin token: set (not shown)");
+        }
         return Ok(());
     }
     server::init_tracing(args.log_json);
@@ -57,7 +60,10 @@ fn serve(args: &server::config::ServeArgs) -> Result<(), commands::Failure> {
         .enable_all()
         .build()
         .map_err(commands::Failure::runtime)?;
-    runtime
-        .block_on(server::run(config))
-        .map_err(commands::Failure::runtime)
+    runtime.block_on(server::run(config)).map_err(|e| match e {
+        server::StartupError::Config(_) | server::StartupError::EmptyStore { .. } => {
+            commands::Failure::bad_input(e)
+        }
+        _ => commands::Failure::runtime(e),
+    })
 }

@@ -124,7 +124,11 @@ fn serve_rejects_a_bad_settings_file_with_file_and_line() {
     let dir = std::env::temp_dir().join(format!("arcwright-conf-{}", std::process::id()));
     std::fs::create_dir_all(&dir).expect("temp dir");
     let path = dir.join("serve.conf");
-    std::fs::write(&path, "# settings\nhttp = 127.0.0.1:0\nmax-tokens = many\n").expect("write");
+    std::fs::write(
+        &path,
+        "# settings\nhttp = \"127.0.0.1:0\"\nmax-tokens = \"many\"\n",
+    )
+    .expect("write");
     let file = path.to_str().expect("utf-8 path");
     let (code, _, stderr) = run(
         &[
@@ -138,10 +142,10 @@ fn serve_rejects_a_bad_settings_file_with_file_and_line() {
     );
     assert_eq!(code, 2, "{stderr}");
     assert!(
-        stderr.contains(&format!("{file}:3: max-tokens = \"many\"")),
+        stderr.contains(&format!("{file}:3: max-tokens = \"many\": invalid type")),
         "{stderr}"
     );
-    std::fs::write(&path, "colour = blue\n").expect("write");
+    std::fs::write(&path, "colour = \"blue\"\n").expect("write");
     let (code, _, stderr) = run(&["serve", "--config", file], b"");
     assert_eq!(code, 2);
     assert!(

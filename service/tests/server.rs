@@ -28,6 +28,7 @@ type Case<'a> = (
 fn config(store: &std::path::Path, cache: &std::path::Path, deadline: Duration) -> Config {
     Config {
         store: store.display().to_string(),
+        bootstrap_demo: true,
         http: "127.0.0.1:0".parse().expect("addr"),
         grpc: "127.0.0.1:0".parse().expect("addr"),
         default_model: None,

@@ -20,6 +20,7 @@ import shutil
 import subprocess
 import sys
 import tempfile
+import tomllib
 
 import yaml
 
@@ -159,12 +160,7 @@ def main():
         "CPU and memory requests are set",
     )
 
-    settings = {}
-    for line in config_map["data"]["arcwright.conf"].splitlines():
-        line = line.split("#")[0].strip()
-        if line:
-            key, value = (part.strip() for part in line.split("=", 1))
-            settings[key] = value
+    settings = tomllib.loads(config_map["data"]["arcwright.conf"])  # Python's standard TOML reader
     pre_stop = container["lifecycle"]["preStop"]["exec"]["command"]
     pause = float(pre_stop[1]) if pre_stop[0] == "sleep" else 0.0
     grace = float(settings["grace-seconds"])

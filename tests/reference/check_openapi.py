@@ -25,7 +25,7 @@ def main():
     os.makedirs(work)
     http_port, grpc_port = free_port(), free_port()
     log = open(os.path.join(work, "serve.log"), "w")
-    proc = subprocess.Popen([binary, "serve", "--store", os.path.join(work, "store"), "--http", f"127.0.0.1:{http_port}",
+    proc = subprocess.Popen([binary, "serve", "--demo", "--store", os.path.join(work, "store"), "--http", f"127.0.0.1:{http_port}",
                              "--grpc", f"127.0.0.1:{grpc_port}", "--cache-dir", os.path.join(work, "cache")],
                             stdout=log, stderr=log)
     base = f"http://127.0.0.1:{http_port}"

@@ -42,7 +42,7 @@ def main():
     os.makedirs(work)
     http_port, grpc_port, prom_port = free_port(), free_port(), free_port()
     serve_log = open(os.path.join(work, "serve.log"), "w")
-    serve = subprocess.Popen([binary, "serve", "--store", os.path.join(work, "store"), "--http", f"127.0.0.1:{http_port}",
+    serve = subprocess.Popen([binary, "serve", "--demo", "--store", os.path.join(work, "store"), "--http", f"127.0.0.1:{http_port}",
                               "--grpc", f"127.0.0.1:{grpc_port}", "--cache-dir", os.path.join(work, "cache"),
                               "--max-in-flight", "256", "--threads", "1"],
                              stdout=serve_log, stderr=serve_log)

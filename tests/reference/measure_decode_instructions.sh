@@ -8,8 +8,8 @@ cd "$(dirname "$0")/../.."
 command -v valgrind >/dev/null || { echo "needs valgrind (Debian package valgrind)" >&2; exit 2; }
 decoders=("$@")
 ((${#decoders[@]})) || decoders=(eisner reference-eisner chu-liu-edmonds)
-cargo build --release --quiet -p arcwright-parser --example decode_instructions
-binary=target/release/examples/decode_instructions
+cargo build --profile profiling --quiet -p arcwright-parser --example decode_instructions
+binary=target/profiling/examples/decode_instructions
 count() {
     valgrind --tool=callgrind --callgrind-out-file=/dev/null "$binary" "$@" 2>&1 |
         sed -n 's/.*Collected : *\([0-9]*\).*/\1/p'

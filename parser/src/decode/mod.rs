@@ -225,11 +225,50 @@ impl ScoreMatrix {
     }
 }
 
-/// A decoded tree: `heads[m]` is the head of word `m` for `m` in `1..=n`; `heads[0]` is 0 and
-/// means nothing.
+/// The heads of a sentence's words, in the one convention of the whole project: `heads[m]` is
+/// the head of word `m` for `m` in `1..=n` (0 = the root), and `heads[0]` is a placeholder 0 so
+/// that word positions index directly. Dereferences to that slice.
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
+pub struct Heads(Vec<usize>);
+
+impl Heads {
+    /// From a vector that already has the placeholder slot 0.
+    pub fn from_slots(slots: Vec<usize>) -> Heads {
+        debug_assert!(slots.first().is_none_or(|&h| h == 0));
+        Heads(slots)
+    }
+
+    /// From the heads of words 1..=n in order (as a CoNLL-U HEAD column or an API reply lists
+    /// them).
+    pub fn from_words(words: &[usize]) -> Heads {
+        let mut slots = Vec::with_capacity(words.len() + 1);
+        slots.push(0);
+        slots.extend_from_slice(words);
+        Heads(slots)
+    }
+
+    /// Number of words.
+    pub fn words(&self) -> usize {
+        self.0.len().saturating_sub(1)
+    }
+
+    /// `(word, head)` for words 1..=n.
+    pub fn arcs(&self) -> impl Iterator<Item = (usize, usize)> + '_ {
+        self.0.iter().copied().enumerate().skip(1)
+    }
+}
+
+impl std::ops::Deref for Heads {
+    type Target = [usize];
+    fn deref(&self) -> &[usize] {
+        &self.0
+    }
+}
+
+/// A decoded tree and its score.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Decoded {
-    pub heads: Vec<usize>,
+    pub heads: Heads,
     pub score: f64,
 }
 
@@ -240,7 +279,10 @@ pub fn decode(scores: &ScoreMatrix, algorithm: Algorithm, root: RootConstraint) 
         Algorithm::NonProjective => chu_liu_edmonds::decode(scores, root),
     };
     let score = scores.tree_score(&heads);
-    Decoded { heads, score }
+    Decoded {
+        heads: Heads::from_slots(heads),
+        score,
+    }
 }
 
 /// What is wrong with a head vector as a dependency tree.

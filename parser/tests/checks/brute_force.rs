@@ -41,7 +41,7 @@ fn check_against_brute_force(scores: &ScoreMatrix, all: &[Vec<usize>], exact_mar
 
         let fast = decode::decode(scores, algorithm, root);
         assert!(
-            trees.contains(&&fast.heads),
+            trees.contains(&&fast.heads.to_vec()),
             "{what}: fast decoder returned a tree outside the family: {:?}",
             fast.heads
         );

@@ -26,12 +26,10 @@ pub fn run(options: &EvalOptions) -> Result<(), Failure> {
         } else {
             model.parse(&example.forms, None, None, decoder)
         };
-        let mut heads = vec![0];
-        heads.extend_from_slice(&parsed.heads);
         evaluator.add(
             &example.heads,
             &example.labels,
-            &heads,
+            &parsed.heads,
             &parsed.labels,
             &example.tags,
             &parsed.tags,

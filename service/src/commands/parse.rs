@@ -16,8 +16,8 @@ use std::path::PathBuf;
 use std::time::Instant;
 
 use arcwright_parser::conllu::{self, Sentence};
-use arcwright_parser::decode::Algorithm;
 use arcwright_parser::model::Model;
+use arcwright_parser::pipeline;
 use arcwright_parser::tokenize;
 use arcwright_store::{ObjectUrl, Store, StoreError, join_url};
 use rayon::prelude::*;
@@ -37,10 +37,20 @@ pub fn run(options: &ParseOptions) -> Result<(), Failure> {
         .num_threads(threads)
         .build()
         .map_err(Failure::runtime)?;
-    let decoder = options.decoder.map(Into::into);
+    let parse_options = pipeline::ParseOptions {
+        decoder: options.decoder.map(Into::into),
+        confidence: options.confidence,
+        ..pipeline::ParseOptions::default()
+    };
     match (&options.files, &options.out) {
         (Some(list), Some(out)) => runtime.block_on(parse_files(
-            &model, &model_id, &pool, decoder, options, list, out,
+            &model,
+            &model_id,
+            &pool,
+            &parse_options,
+            options,
+            list,
+            out,
         )),
         _ => {
             let mut input = Vec::new();
@@ -48,7 +58,7 @@ pub fn run(options: &ParseOptions) -> Result<(), Failure> {
                 .read_to_end(&mut input)
                 .map_err(|e| Failure::runtime(format!("stdin: {e}")))?;
             let mut sentences = read_sentences("<stdin>", &input, options.input)?;
-            pool.install(|| parse_all(&model, &mut sentences, decoder));
+            pool.install(|| parse_all(&model, &mut sentences, &parse_options));
             std::io::stdout()
                 .write_all(write_sentences(&sentences).as_bytes())
                 .map_err(|e| Failure::runtime(format!("stdout: {e}")))
@@ -107,18 +117,28 @@ fn read_sentences(
     })
 }
 
-/// Fills UPOS, HEAD and DEPREL of every sentence, in parallel on the current rayon pool.
-fn parse_all(model: &Model, sentences: &mut [Sentence], decoder: Option<Algorithm>) {
+/// Fills UPOS, HEAD and DEPREL of every sentence (and, with confidences, an
+/// `ArcConfidence=P` entry in MISC), in parallel on the current rayon pool.
+fn parse_all(model: &Model, sentences: &mut [Sentence], options: &pipeline::ParseOptions) {
     sentences.par_iter_mut().for_each(|sentence| {
         if sentence.is_empty() {
             return;
         }
         let forms: Vec<String> = sentence.words().map(|w| w.form.clone()).collect();
-        let parsed = model.parse(&forms, None, None, decoder);
-        for (i, word) in sentence.words_mut().enumerate() {
+        let parsed = model.parse_observed(&forms, None, options, &mut pipeline::Unobserved);
+        let confidences = parsed.confidences.as_deref();
+        for (i, (word, (_, head))) in sentence.words_mut().zip(parsed.heads.arcs()).enumerate() {
             word.upos = parsed.tags[i].clone();
-            word.head = Some(parsed.heads[i]);
+            word.head = Some(head);
             word.deprel = parsed.labels[i].clone();
+            if let Some(p) = confidences.and_then(|c| c[i]) {
+                // Rust prints the shortest decimal that reads back as the same f64.
+                let entry = format!("ArcConfidence={p}");
+                word.misc = match word.misc.as_str() {
+                    "_" | "" => entry,
+                    other => format!("{other}|{entry}"),
+                };
+            }
         }
     });
 }
@@ -182,7 +202,7 @@ async fn parse_files(
     model: &Model,
     model_id: &str,
     pool: &rayon::ThreadPool,
-    decoder: Option<Algorithm>,
+    parse_options: &pipeline::ParseOptions,
     options: &ParseOptions,
     list: &str,
     out: &str,
@@ -215,7 +235,7 @@ async fn parse_files(
             other => store_failure(other),
         })?;
         let mut sentences = read_sentences(input.url(), &bytes, options.input)?;
-        pool.install(|| parse_all(model, &mut sentences, decoder));
+        pool.install(|| parse_all(model, &mut sentences, parse_options));
         sentences_done += sentences.len();
         tokens_done += sentences.iter().map(|s| s.words().count()).sum::<usize>();
         output

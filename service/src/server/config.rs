@@ -1,18 +1,78 @@
-//! `arcwright serve` configuration: flags and environment variables (read here and nowhere else
-//! in the service), validated before anything is built.
+//! `arcwright serve` configuration: one struct of settings, filled from flags, `ARCWRIGHT_*`
+//! environment variables (read here and nowhere else in the service) and an optional TOML file,
+//! validated into [`Config`] before anything is built.
+//!
+//! The file is read with the same serde definition as the flags: its keys are the flag names
+//! (`max-tokens = 256`), unknown keys are refused with their line, and a flag or an environment
+//! variable wins over the file.
 
 use std::net::SocketAddr;
 use std::path::PathBuf;
 use std::time::Duration;
 
 use clap::Args;
+use serde::{Deserialize, Serialize};
 
-/// Flags of `arcwright serve`; each has an `ARCWRIGHT_*` environment variable.
-#[derive(Debug, Clone, Args)]
+/// The store `serve` and `store` use when none is named: a directory beside the working
+/// directory that is no source folder of the repository (and is git-ignored).
+pub const DEFAULT_STORE: &str = "./arcwright-store";
+
+/// A setting that cannot be used, naming the flag (or the file and line) and the reason.
+#[derive(Debug, thiserror::Error)]
+pub enum ConfigError {
+    #[error("--config {path}: {source}")]
+    File {
+        path: String,
+        source: std::io::Error,
+    },
+    #[error("{path}:{line}: {message}")]
+    Syntax {
+        path: String,
+        line: usize,
+        message: String,
+    },
+    #[error("{path}:{line}: unknown setting {key:?}")]
+    UnknownSetting {
+        path: String,
+        line: usize,
+        key: String,
+    },
+    #[error("{path}:{line}: {key} = {value}: {reason}")]
+    FileValue {
+        path: String,
+        line: usize,
+        key: String,
+        value: String,
+        reason: String,
+    },
+    #[error("--{flag} {value}: {reason}")]
+    Value {
+        flag: &'static str,
+        value: String,
+        reason: &'static str,
+    },
+    #[error("--admin-token-file {path}: {source}")]
+    AdminTokenFile {
+        path: String,
+        source: std::io::Error,
+    },
+    #[error("the admin token must be at least 16 characters")]
+    AdminTokenTooShort,
+}
+
+/// Flags of `arcwright serve`; each has an `ARCWRIGHT_*` environment variable and a key of the
+/// same name in the settings file.
+#[derive(Debug, Clone, Args, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, rename_all = "kebab-case")]
 pub struct ServeArgs {
     /// Model store URL (path, file:///…, s3://bucket/prefix).
-    #[arg(long, env = "ARCWRIGHT_STORE", default_value = "./model-store")]
+    #[arg(long, env = "ARCWRIGHT_STORE", default_value = DEFAULT_STORE)]
     pub store: String,
+    /// Build the bundled demo model (an invented harbour-crew scenario; seconds) into the store
+    /// when it has no live model. Without this flag only the default local store is bootstrapped;
+    /// any other empty store is a startup error.
+    #[arg(long, env = "ARCWRIGHT_DEMO")]
+    pub demo: bool,
     /// HTTP/JSON listen address.
     #[arg(long, env = "ARCWRIGHT_HTTP", default_value = "127.0.0.1:8080")]
     pub http: SocketAddr,
@@ -55,13 +115,16 @@ pub struct ServeArgs {
     /// Log JSON lines instead of human-readable text.
     #[arg(long, env = "ARCWRIGHT_LOG_JSON")]
     pub log_json: bool,
-    /// Optional settings file: `name = value` lines with the flag names above (without `--`),
-    /// `#` comments. A flag or an environment variable wins over the file.
+    /// Optional settings file (TOML): the flag names above as keys, without `--`
+    /// (`max-tokens = 256`, `store = "s3://bucket/prefix"`). A flag or an environment variable
+    /// wins over the file.
     #[arg(long, env = "ARCWRIGHT_CONFIG")]
+    #[serde(skip)]
     pub config: Option<PathBuf>,
-    /// Check the settings (flags, variables, config file, admin token), print them and exit
-    /// without serving: for deployment pipelines.
+    /// Check the settings (flags, variables, config file, admin token), print the resolved
+    /// settings as a settings file and exit without serving: for deployment pipelines.
     #[arg(long)]
+    #[serde(skip)]
     pub check_config: bool,
 }
 
@@ -69,6 +132,9 @@ pub struct ServeArgs {
 #[derive(Clone)]
 pub struct Config {
     pub store: String,
+    /// Build the demo model into the store if it has no live model (`--demo`, or the default
+    /// local store).
+    pub bootstrap_demo: bool,
     pub http: SocketAddr,
     pub grpc: SocketAddr,
     pub default_model: Option<String>,
@@ -84,6 +150,7 @@ impl std::fmt::Debug for Config {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.debug_struct("Config")
             .field("store", &self.store)
+            .field("bootstrap_demo", &self.bootstrap_demo)
             .field("http", &self.http)
             .field("grpc", &self.grpc)
             .field("default_model", &self.default_model)
@@ -110,87 +177,107 @@ pub struct Limits {
     pub max_in_flight: usize,
 }
 
-fn seconds(name: &str, value: f64) -> Result<Duration, String> {
+fn seconds(flag: &'static str, value: f64) -> Result<Duration, ConfigError> {
     if value.is_finite() && value > 0.0 && value < 86_400.0 {
         Ok(Duration::from_secs_f64(value))
     } else {
-        Err(format!(
-            "--{name} {value}: must be a number of seconds between 0 and 86400"
-        ))
+        Err(ConfigError::Value {
+            flag,
+            value: value.to_string(),
+            reason: "must be a number of seconds between 0 and 86400",
+        })
     }
+}
+
+/// The 1-based line of byte `offset` in `text`.
+fn line_of(text: &str, offset: usize) -> usize {
+    text[..offset.min(text.len())].matches('\n').count() + 1
+}
+
+/// The 1-based line where `key` is set (bare keys, as the settings file uses them).
+fn line_of_key(text: &str, key: &str) -> usize {
+    text.lines()
+        .position(|line| {
+            line.trim_start()
+                .strip_prefix(key)
+                .is_some_and(|rest| rest.trim_start().starts_with('='))
+        })
+        .map_or(1, |index| index + 1)
 }
 
 impl ServeArgs {
     /// Fills in settings from `--config FILE` where the user gave neither a flag nor an
     /// environment variable (`matches` says where each value came from).
-    pub fn apply_config_file(&mut self, matches: &clap::ArgMatches) -> Result<(), String> {
-        let Some(path) = self.config.clone() else {
+    pub fn apply_config_file(&mut self, matches: &clap::ArgMatches) -> Result<(), ConfigError> {
+        let Some(file) = self.config.clone() else {
             return Ok(());
         };
-        let text = std::fs::read_to_string(&path)
-            .map_err(|e| format!("--config {}: {e}", path.display()))?;
-        for (index, raw) in text.lines().enumerate() {
-            let line = raw.split('#').next().unwrap_or("").trim();
-            if line.is_empty() {
-                continue;
+        let path = file.display().to_string();
+        let text = std::fs::read_to_string(&file).map_err(|source| ConfigError::File {
+            path: path.clone(),
+            source,
+        })?;
+        let table: toml::Table =
+            toml::from_str(&text).map_err(|e: toml::de::Error| ConfigError::Syntax {
+                path: path.clone(),
+                line: e.span().map_or(1, |span| line_of(&text, span.start)),
+                message: e.message().to_string(),
+            })?;
+        let mut merged = match serde_json::to_value(&*self) {
+            Ok(serde_json::Value::Object(map)) => map,
+            _ => unreachable!("ServeArgs serializes to an object"),
+        };
+        for (key, value) in table {
+            let line = line_of_key(&text, &key);
+            if !merged.contains_key(&key) {
+                return Err(ConfigError::UnknownSetting { path, line, key });
             }
-            let at = || format!("{}:{}", path.display(), index + 1);
-            let (key, value) = line
-                .split_once('=')
-                .ok_or_else(|| format!("{}: expected `name = value`", at()))?;
-            let (key, value) = (key.trim(), value.trim().trim_matches('"'));
-            let id = key.replace('-', "_");
-            if matches.try_get_raw(&id).is_err() || id == "config" {
-                return Err(format!("{}: unknown setting {key:?}", at()));
-            }
-            if !matches!(
-                matches.value_source(&id),
+            let user_set = !matches!(
+                matches.value_source(&key.replace('-', "_")),
                 None | Some(clap::parser::ValueSource::DefaultValue)
-            ) {
+            );
+            if user_set {
                 continue; // a flag or an environment variable wins
             }
-            let bad = |e: String| format!("{}: {key} = {value:?}: {e}", at());
-            let number = |v: &str| v.parse::<usize>().map_err(|e| bad(e.to_string()));
-            let float = |v: &str| v.parse::<f64>().map_err(|e| bad(e.to_string()));
-            match id.as_str() {
-                "store" => self.store = value.to_string(),
-                "http" => {
-                    self.http = value
-                        .parse()
-                        .map_err(|e: std::net::AddrParseError| bad(e.to_string()))?
+            let shown = value.to_string();
+            let json = serde_json::to_value(&value).unwrap_or(serde_json::Value::Null);
+            let mut trial = merged.clone();
+            trial.insert(key.clone(), json.clone());
+            // Checked one key at a time, so a wrong type names its key and line.
+            serde_json::from_value::<ServeArgs>(serde_json::Value::Object(trial)).map_err(|e| {
+                ConfigError::FileValue {
+                    path: path.clone(),
+                    line,
+                    key: key.clone(),
+                    value: shown,
+                    reason: e.to_string(),
                 }
-                "grpc" => {
-                    self.grpc = value
-                        .parse()
-                        .map_err(|e: std::net::AddrParseError| bad(e.to_string()))?
-                }
-                "default_model" => self.default_model = Some(value.to_string()),
-                "poll_seconds" => self.poll_seconds = float(value)?,
-                "cache_dir" => self.cache_dir = PathBuf::from(value),
-                "admin_token_file" => self.admin_token_file = Some(PathBuf::from(value)),
-                "max_tokens" => self.max_tokens = number(value)?,
-                "max_sentences" => self.max_sentences = number(value)?,
-                "max_body_bytes" => self.max_body_bytes = number(value)?,
-                "deadline_seconds" => self.deadline_seconds = float(value)?,
-                "max_in_flight" => self.max_in_flight = number(value)?,
-                "threads" => self.threads = Some(number(value)?),
-                "grace_seconds" => self.grace_seconds = float(value)?,
-                "log_json" => {
-                    self.log_json = value
-                        .parse()
-                        .map_err(|e: std::str::ParseBoolError| bad(e.to_string()))?
-                }
-                _ => return Err(format!("{}: unknown setting {key:?}", at())),
-            }
+            })?;
+            merged.insert(key, json);
         }
+        let mut resolved: ServeArgs = serde_json::from_value(serde_json::Value::Object(merged))
+            .expect("every key was checked on its own");
+        resolved.config = self.config.take();
+        resolved.check_config = self.check_config;
+        *self = resolved;
         Ok(())
     }
 
+    /// The resolved settings as a settings file (`--check-config`). The admin token itself is
+    /// never part of it: only the file that holds it.
+    pub fn to_settings_file(&self) -> String {
+        toml::to_string(self).unwrap_or_else(|e| format!("# cannot render the settings: {e}\n"))
+    }
+
     /// Checks the flags; reads the admin token (from its file, or `ARCWRIGHT_ADMIN_TOKEN`).
-    pub fn validate(&self) -> Result<Config, String> {
-        let positive = |name: &str, v: usize| {
+    pub fn validate(&self) -> Result<Config, ConfigError> {
+        let positive = |flag: &'static str, v: usize| {
             if v == 0 {
-                Err(format!("--{name} must be at least 1"))
+                Err(ConfigError::Value {
+                    flag,
+                    value: v.to_string(),
+                    reason: "must be at least 1",
+                })
             } else {
                 Ok(v)
             }
@@ -198,7 +285,10 @@ impl ServeArgs {
         let admin_token = match &self.admin_token_file {
             Some(path) => Some(
                 std::fs::read_to_string(path)
-                    .map_err(|e| format!("--admin-token-file {}: {e}", path.display()))?
+                    .map_err(|source| ConfigError::AdminTokenFile {
+                        path: path.display().to_string(),
+                        source,
+                    })?
                     .trim()
                     .to_string(),
             ),
@@ -207,10 +297,11 @@ impl ServeArgs {
                 .map(|t| t.trim().to_string()),
         };
         if admin_token.as_ref().is_some_and(|t| t.len() < 16) {
-            return Err("the admin token must be at least 16 characters".to_string());
+            return Err(ConfigError::AdminTokenTooShort);
         }
         Ok(Config {
             store: self.store.clone(),
+            bootstrap_demo: self.demo || self.store == DEFAULT_STORE,
             http: self.http,
             grpc: self.grpc,
             default_model: self.default_model.clone(),

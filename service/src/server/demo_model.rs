@@ -1,22 +1,25 @@
-//! First run on an empty store: build the demo model (seconds), publish it as `demo` and make
-//! it `live`, so `arcwright serve` works on a fresh clone. Demo data only — an invented scenario.
+//! The demo model, built only when asked for (`serve --demo`, or the default local store when it
+//! is empty): train on the invented harbour-crew sentences (seconds), publish it as `demo` and
+//! make it `live`, so `arcwright serve` works on a fresh clone. Demo data only.
 
 use arcwright_parser::demo;
 use arcwright_parser::train::{self, Example, TrainOptions};
-use arcwright_store::Store;
+use arcwright_store::{Store, StoreError};
 
-/// Does nothing if any model in the store has a `live` alias.
-pub async fn ensure_some_model(store: &Store) -> Result<(), String> {
-    for name in store.names().await.map_err(|e| e.to_string())? {
-        if store
-            .alias(&name, "live")
-            .await
-            .map_err(|e| e.to_string())?
-            .is_some()
-        {
-            return Ok(());
+use super::StartupError;
+
+/// Whether any model in the store has a `live` alias.
+pub async fn has_live_model(store: &Store) -> Result<bool, StoreError> {
+    for name in store.names().await? {
+        if store.alias(&name, "live").await?.is_some() {
+            return Ok(true);
         }
     }
+    Ok(false)
+}
+
+/// Trains the demo model and publishes it as `demo`, `live`.
+pub async fn publish_demo_model(store: &Store) -> Result<(), StartupError> {
     tracing::info!(store = %store.url(), "the store has no live model: building the demo model (invented harbour-crew sentences; a few seconds)");
     let started = std::time::Instant::now();
     // Unique per call: several stores may be bootstrapped by one process (tests).
@@ -34,15 +37,10 @@ pub async fn ensure_some_model(store: &Store) -> Result<(), String> {
         model.save(&build_dir).map_err(|e| e.to_string())
     })
     .await
-    .map_err(|e| e.to_string())??;
-    let manifest = store
-        .publish("demo", &dir, None)
-        .await
-        .map_err(|e| e.to_string())?;
-    store
-        .set_alias("demo", "live", &manifest.version)
-        .await
-        .map_err(|e| e.to_string())?;
+    .map_err(|e| StartupError::Demo(e.to_string()))?
+    .map_err(StartupError::Demo)?;
+    let manifest = store.publish("demo", &dir, None).await?;
+    store.set_alias("demo", "live", &manifest.version).await?;
     let _ = std::fs::remove_dir_all(&dir);
     tracing::info!(version = %manifest.version, seconds = started.elapsed().as_secs_f64(), "demo model published as demo/live");
     Ok(())

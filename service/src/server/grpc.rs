@@ -10,7 +10,9 @@ use futures::StreamExt;
 use tonic::{Request, Response, Status, Streaming};
 
 use super::AppState;
-use super::errors::ApiError;
+use arcwright_parser::decode::Algorithm;
+
+use super::errors::{ApiError, ErrorCode};
 use super::request::{ParseJob, ParseOutcome, SentenceInput, TokenOut};
 
 pub mod proto {
@@ -32,13 +34,13 @@ pub struct AdminService {
     pub state: Arc<AppState>,
 }
 
-fn decoder_name(value: i32) -> Result<Option<String>, ApiError> {
+fn decoder(value: i32) -> Result<Option<Algorithm>, ApiError> {
     match proto::Decoder::try_from(value) {
         Ok(proto::Decoder::Unspecified) => Ok(None),
-        Ok(proto::Decoder::Projective) => Ok(Some("projective".into())),
-        Ok(proto::Decoder::NonProjective) => Ok(Some("non-projective".into())),
-        Err(_) => Err(ApiError::invalid(
-            "unknown_decoder",
+        Ok(proto::Decoder::Projective) => Ok(Some(Algorithm::Projective)),
+        Ok(proto::Decoder::NonProjective) => Ok(Some(Algorithm::NonProjective)),
+        Err(_) => Err(ApiError::new(
+            ErrorCode::UnknownDecoder,
             format!("unknown decoder value {value}"),
         )),
     }
@@ -135,7 +137,7 @@ async fn parse_one_inner(
 ) -> Result<proto::ParseResponse, ApiError> {
     let job = ParseJob {
         model: Some(message.model),
-        decoder: decoder_name(message.decoder)?,
+        decoder: decoder(message.decoder)?,
         confidence: message.confidence,
         inputs: vec![input(message.input)],
     };
@@ -193,7 +195,7 @@ impl Parser for ParserService {
         let message = request.into_inner();
         let job = ParseJob {
             model: Some(message.model),
-            decoder: decoder_name(message.decoder)?,
+            decoder: decoder(message.decoder)?,
             confidence: message.confidence,
             inputs: message
                 .sentences

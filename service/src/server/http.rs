@@ -13,9 +13,11 @@ use axum::{Json, Router};
 use serde::Deserialize;
 
 use super::AppState;
-use super::errors::{ApiError, Kind};
+use subtle::ConstantTimeEq;
+
+use super::errors::{ApiError, ErrorCode};
 use super::metrics;
-use super::request::{ParseJob, ParseOutcome, SentenceInput, TokenOut};
+use super::request::{ParseJob, ParseOutcome, SentenceInput, TokenOut, decoder_from_name};
 
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -85,11 +87,7 @@ pub fn router(state: Arc<AppState>) -> Router {
             }),
         )
         .fallback(|| async {
-            ApiError::new(
-                Kind::NotFound,
-                "no_route",
-                "no such route; see /v1/openapi.json",
-            )
+            ApiError::new(ErrorCode::NoRoute, "no such route; see /v1/openapi.json")
         })
         .layer(middleware::from_fn(request_id))
         .with_state(state)
@@ -122,8 +120,7 @@ fn decode_json<T: for<'de> Deserialize<'de>>(
 ) -> Result<T, ApiError> {
     if body.len() > state.engine.limits.max_body_bytes {
         return Err(ApiError::new(
-            Kind::PayloadTooLarge,
-            "body_too_large",
+            ErrorCode::BodyTooLarge,
             format!(
                 "body of {} bytes; the limit is {}",
                 body.len(),
@@ -132,19 +129,23 @@ fn decode_json<T: for<'de> Deserialize<'de>>(
         ));
     }
     if body.is_empty() {
-        return Err(ApiError::invalid(
-            "empty_body",
+        return Err(ApiError::new(
+            ErrorCode::EmptyBody,
             "the request body is empty; send a JSON object",
         ));
     }
     if let Err(e) = std::str::from_utf8(body) {
-        return Err(ApiError::invalid(
-            "invalid_utf8",
+        return Err(ApiError::new(
+            ErrorCode::InvalidUtf8,
             format!("the body is not valid UTF-8 (byte {})", e.valid_up_to()),
         ));
     }
-    serde_json::from_slice(body)
-        .map_err(|e| ApiError::invalid("malformed_json", format!("invalid JSON request: {e}")))
+    serde_json::from_slice(body).map_err(|e| {
+        ApiError::new(
+            ErrorCode::MalformedJson,
+            format!("invalid JSON request: {e}"),
+        )
+    })
 }
 
 fn sentences_json(sentences: Vec<Vec<TokenOut>>) -> serde_json::Value {
@@ -164,7 +165,8 @@ async fn parse(State(state): State<Arc<AppState>>, body: Bytes) -> Result<Respon
     let request: ParseBody = decode_json(&state, &body).inspect_err(|e| count("parse", e))?;
     let job = ParseJob {
         model: request.model,
-        decoder: request.decoder,
+        decoder: decoder_from_name(request.decoder.as_deref())
+            .inspect_err(|e| count("parse", e))?,
         confidence: request.confidence,
         inputs: vec![SentenceInput {
             text: request.text,
@@ -190,7 +192,8 @@ async fn parse_batch(
     let request: BatchBody = decode_json(&state, &body).inspect_err(|e| count("parse_batch", e))?;
     let job = ParseJob {
         model: request.model,
-        decoder: request.decoder,
+        decoder: decoder_from_name(request.decoder.as_deref())
+            .inspect_err(|e| count("parse_batch", e))?,
         confidence: request.confidence,
         inputs: request
             .sentences
@@ -217,7 +220,7 @@ async fn parse_batch(
 
 fn count(method: &str, error: &ApiError) {
     metrics::REQUESTS
-        .with_label_values(&["http", method, error.code])
+        .with_label_values(&["http", method, error.code.as_str()])
         .inc();
 }
 
@@ -229,26 +232,20 @@ async fn models(State(state): State<Arc<AppState>>) -> Result<Json<serde_json::V
 pub fn check_admin(state: &AppState, presented: Option<&str>) -> Result<(), ApiError> {
     let Some(expected) = &state.admin_token else {
         return Err(ApiError::new(
-            Kind::PermissionDenied,
-            "admin_disabled",
+            ErrorCode::AdminDisabled,
             "admin routes are off: no admin token is configured",
         ));
     };
     let presented = presented
         .and_then(|h| h.strip_prefix("Bearer "))
         .unwrap_or("");
-    let same = presented.len() == expected.len()
-        && presented
-            .bytes()
-            .zip(expected.bytes())
-            .fold(0u8, |acc, (a, b)| acc | (a ^ b))
-            == 0;
+    // `subtle` compares in time independent of where the bytes differ (only the length shows).
+    let same: bool = presented.as_bytes().ct_eq(expected.as_bytes()).into();
     if same {
         Ok(())
     } else {
         Err(ApiError::new(
-            Kind::Unauthenticated,
-            "unauthenticated",
+            ErrorCode::Unauthenticated,
             "missing or wrong admin token (Authorization: Bearer …)",
         ))
     }
@@ -275,12 +272,7 @@ async fn ready(State(state): State<Arc<AppState>>) -> Response {
     {
         (StatusCode::OK, "ready").into_response()
     } else {
-        ApiError::new(
-            Kind::Unavailable,
-            "not_ready",
-            "no model loaded yet, or shutting down",
-        )
-        .into_response()
+        ApiError::new(ErrorCode::NotReady, "no model loaded yet, or shutting down").into_response()
     }
 }
 

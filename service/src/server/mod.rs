@@ -1,7 +1,7 @@
 //! `arcwright serve`: the long-running parsing service.
 //!
-//! Startup reads like a story: tracing; validated configuration; the store (bootstrapping the
-//! demo model into an empty store); the first load of every model with a `live` alias; the
+//! Startup reads like a story: tracing; validated configuration; the store (building the demo
+//! model into it only when asked: `--demo`, or the default local store); the first load of every model with a `live` alias; the
 //! compute pool; both listeners bound and logged with a ready-to-paste example; the store
 //! follower (hot-swap); serving until SIGTERM/SIGINT; then stop accepting, drain in-flight
 //! requests within the grace period, exit 0.
@@ -24,9 +24,40 @@ use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use arcwright_store::Store;
 use tokio::sync::Semaphore;
 
-use errors::{ApiError, Kind};
+use errors::{ApiError, ErrorCode};
 use registry::Registry;
 use request::Engine;
+
+/// Why the service could not start. Each names what the operator must fix.
+#[derive(Debug, thiserror::Error)]
+pub enum StartupError {
+    #[error(transparent)]
+    Config(#[from] config::ConfigError),
+    #[error("model store: {0}")]
+    Store(#[from] arcwright_store::StoreError),
+    #[error(
+        "the store {store} has no model with a live alias; publish and promote one \
+         (arcwright store publish --store {store} --name NAME DIR, then store promote), \
+         or start with --demo to build the bundled demo model into it"
+    )]
+    EmptyStore { store: String },
+    #[error("building the demo model: {0}")]
+    Demo(String),
+    #[error("no model could be loaded from {store} (see the log)")]
+    NothingLoaded { store: String },
+    #[error("--default-model: {0}")]
+    DefaultModel(ApiError),
+    #[error("cannot start the parsing threads: {0}")]
+    Pool(#[from] rayon::ThreadPoolBuildError),
+    #[error("cannot listen for {what} on {address}: {source}")]
+    Bind {
+        what: &'static str,
+        address: std::net::SocketAddr,
+        source: std::io::Error,
+    },
+    #[error("gRPC reflection: {0}")]
+    Reflection(#[from] tonic_reflection::server::Error),
+}
 
 /// Everything the front doors share.
 #[derive(Debug)]
@@ -50,9 +81,8 @@ pub fn new_request_id() -> String {
 pub async fn models_status(state: &AppState) -> Result<serde_json::Value, ApiError> {
     let registry = &state.engine.registry;
     let store = registry.store();
-    let unavailable = |e: arcwright_store::StoreError| {
-        ApiError::new(Kind::Unavailable, "store_unavailable", e.to_string())
-    };
+    let unavailable =
+        |e: arcwright_store::StoreError| ApiError::new(ErrorCode::StoreUnavailable, e.to_string());
     let mut names = store.names().await.map_err(unavailable)?;
     for (name, _) in registry.serving() {
         if !names.contains(&name) {
@@ -111,16 +141,16 @@ pub async fn activate(
     let registry = &state.engine.registry;
     let store_error = |e: arcwright_store::StoreError| match e {
         arcwright_store::StoreError::InvalidName { .. } => {
-            ApiError::invalid("invalid_name", e.to_string())
+            ApiError::new(ErrorCode::InvalidName, e.to_string())
         }
         arcwright_store::StoreError::NotFound { .. } => {
-            ApiError::new(Kind::NotFound, "unknown_version", e.to_string())
+            ApiError::new(ErrorCode::UnknownVersion, e.to_string())
         }
         arcwright_store::StoreError::Corrupt { .. }
         | arcwright_store::StoreError::UnknownSchema { .. } => {
-            ApiError::invalid("unusable_version", e.to_string())
+            ApiError::new(ErrorCode::UnusableVersion, e.to_string())
         }
-        other => ApiError::new(Kind::Unavailable, "store_unavailable", other.to_string()),
+        other => ApiError::new(ErrorCode::StoreUnavailable, other.to_string()),
     };
     let record = registry
         .store()
@@ -129,8 +159,7 @@ pub async fn activate(
         .map_err(store_error)?;
     registry.load_and_swap(name, version).await.map_err(|m| {
         ApiError::new(
-            Kind::Internal,
-            "load_failed",
+            ErrorCode::LoadFailed,
             format!("the alias moved but this replica could not load it: {m}"),
         )
     })?;
@@ -138,32 +167,38 @@ pub async fn activate(
 }
 
 /// Builds the app state (no sockets): used by `run` and by tests.
-pub async fn build_state(config: &config::Config) -> Result<Arc<AppState>, String> {
+pub async fn build_state(config: &config::Config) -> Result<Arc<AppState>, StartupError> {
     metrics::init();
-    let store = Store::open(&config.store).map_err(|e| e.to_string())?;
-    demo_model::ensure_some_model(&store).await?;
+    let store = Store::open(&config.store)?;
+    if !demo_model::has_live_model(&store).await? {
+        if !config.bootstrap_demo {
+            return Err(StartupError::EmptyStore {
+                store: config.store.clone(),
+            });
+        }
+        demo_model::publish_demo_model(&store).await?;
+    }
     let registry = Arc::new(Registry::new(
         store,
         config.cache_dir.clone(),
         config.default_model.clone(),
+        config.poll,
     ));
     let serving = registry.follow_once().await;
     if serving == 0 {
-        return Err(format!(
-            "no model could be loaded from {} (see the log)",
-            config.store
-        ));
+        return Err(StartupError::NothingLoaded {
+            store: config.store.clone(),
+        });
     }
     if let Some(name) = &config.default_model {
         registry
             .snapshot(Some(name))
-            .map_err(|e| format!("--default-model: {e}"))?;
+            .map_err(StartupError::DefaultModel)?;
     }
     let pool = rayon::ThreadPoolBuilder::new()
         .num_threads(config.threads)
         .thread_name(|i| format!("parse-{i}"))
-        .build()
-        .map_err(|e| e.to_string())?;
+        .build()?;
     Ok(Arc::new(AppState {
         engine: Engine {
             registry,
@@ -190,25 +225,34 @@ pub fn init_tracing(json: bool) {
 }
 
 /// Runs the service until SIGTERM/SIGINT, then drains and returns.
-pub async fn run(config: config::Config) -> Result<(), String> {
+pub async fn run(config: config::Config) -> Result<(), StartupError> {
     let state = build_state(&config).await?;
     let registry = state.engine.registry.clone();
     for (name, served) in registry.serving() {
         tracing::info!(model = %name, version = %served.version, load_seconds = served.load_seconds, "serving model");
     }
-    let http_listener = tokio::net::TcpListener::bind(config.http)
-        .await
-        .map_err(|e| format!("HTTP {}: {e}", config.http))?;
-    let grpc_listener = tokio::net::TcpListener::bind(config.grpc)
-        .await
-        .map_err(|e| format!("gRPC {}: {e}", config.grpc))?;
-    let http_addr = http_listener.local_addr().map_err(|e| e.to_string())?;
-    let grpc_addr = grpc_listener.local_addr().map_err(|e| e.to_string())?;
+    let bind = |what: &'static str, address: std::net::SocketAddr| async move {
+        let listener = tokio::net::TcpListener::bind(address)
+            .await
+            .map_err(|source| StartupError::Bind {
+                what,
+                address,
+                source,
+            })?;
+        let bound = listener.local_addr().map_err(|source| StartupError::Bind {
+            what,
+            address,
+            source,
+        })?;
+        Ok::<_, StartupError>((listener, bound))
+    };
+    let (http_listener, http_addr) = bind("HTTP", config.http).await?;
+    let (grpc_listener, grpc_addr) = bind("gRPC", config.grpc).await?;
     tracing::info!(%http_addr, %grpc_addr, store = %config.store, threads = config.threads, "listening");
     eprintln!(
         "arcwright is serving: HTTP on http://{http_addr}, gRPC on {grpc_addr}\n  try: curl -s http://{http_addr}/v1/parse -d '{{\"text\": \"The crane operator moved a blue container.\"}}'\n  gRPC: grpcurl -plaintext -d '{{\"input\": {{\"text\": \"The pilot signed the manifest.\"}}}}' {grpc_addr} arcwright.v1.Parser/Parse"
     );
-    let follower = tokio::spawn(registry.clone().follow(config.poll));
+    let follower = tokio::spawn(registry.clone().follow());
 
     let (shutdown_tx, shutdown_rx) = tokio::sync::watch::channel(false);
     let http_state = state.clone();
@@ -238,10 +282,8 @@ pub async fn run(config: config::Config) -> Result<(), String> {
             .register_encoded_file_descriptor_set(grpc::proto::DESCRIPTOR)
             .register_encoded_file_descriptor_set(tonic_health::pb::FILE_DESCRIPTOR_SET)
     };
-    let reflection = reflection_builder().build_v1().map_err(|e| e.to_string())?;
-    let reflection_alpha = reflection_builder()
-        .build_v1alpha()
-        .map_err(|e| e.to_string())?;
+    let reflection = reflection_builder().build_v1()?;
+    let reflection_alpha = reflection_builder().build_v1alpha()?;
     let max_message = config.limits.max_body_bytes;
     let parser_service = grpc::proto::parser_server::ParserServer::new(grpc::ParserService {
         state: state.clone(),

@@ -4,7 +4,8 @@
 //! one `Arc<Served>` at its start and keeps it to the end, so a swap never affects a request in
 //! flight. A new version is fetched (every checksum verified), loaded and smoke-parsed in the
 //! background before the atomic swap; any failure leaves the old version serving and is logged
-//! and counted.
+//! and counted. The registry follows the store through its change feed
+//! ([`arcwright_store::AliasFeed`]), which backs off while the store fails.
 
 use std::collections::BTreeMap;
 use std::path::PathBuf;
@@ -12,10 +13,25 @@ use std::sync::{Arc, Mutex, RwLock};
 use std::time::{Duration, Instant, SystemTime};
 
 use arc_swap::ArcSwap;
-use arcwright_parser::model::Model;
-use arcwright_store::Store;
+use arcwright_parser::model::{Model, ModelError};
+use arcwright_store::{AliasFeed, Store, StoreError};
 
-use super::errors::{ApiError, Kind};
+use super::errors::{ApiError, ErrorCode};
+
+/// Why a version could not be loaded; the version being served keeps serving.
+#[derive(Debug, thiserror::Error)]
+pub enum LoadError {
+    #[error(transparent)]
+    Store(#[from] StoreError),
+    #[error(transparent)]
+    Model(#[from] ModelError),
+    #[error("smoke parse failed: {0}")]
+    SmokeParse(#[from] arcwright_parser::decode::TreeError),
+    #[error("the loading task failed: {0}")]
+    Task(#[from] tokio::task::JoinError),
+    #[error("the registry's lock is poisoned")]
+    Poisoned,
+}
 
 /// One loaded model version (immutable).
 #[derive(Debug)]
@@ -41,6 +57,8 @@ pub struct SwapEvent {
 #[derive(Debug)]
 pub struct Registry {
     store: Store,
+    /// The store's `live` aliases, as they change.
+    feed: tokio::sync::Mutex<AliasFeed>,
     cache: PathBuf,
     configured_default: Option<String>,
     models: RwLock<BTreeMap<String, Arc<ArcSwap<Served>>>>,
@@ -56,8 +74,15 @@ fn unix_ms() -> u128 {
 }
 
 impl Registry {
-    pub fn new(store: Store, cache: PathBuf, configured_default: Option<String>) -> Self {
+    /// `poll`: the interval at which the store's aliases are checked.
+    pub fn new(
+        store: Store,
+        cache: PathBuf,
+        configured_default: Option<String>,
+        poll: Duration,
+    ) -> Self {
         Registry {
+            feed: tokio::sync::Mutex::new(AliasFeed::new(store.clone(), "live", poll)),
             store,
             cache,
             configured_default,
@@ -83,21 +108,20 @@ impl Registry {
     pub fn snapshot(&self, name: Option<&str>) -> Result<Arc<Served>, ApiError> {
         let name = match name.filter(|n| !n.is_empty()) {
             Some(n) => n.to_string(),
-            None => self.default_name().ok_or_else(|| {
-                ApiError::new(Kind::Unavailable, "no_model", "no model is loaded yet")
-            })?,
+            None => self
+                .default_name()
+                .ok_or_else(|| ApiError::new(ErrorCode::NoModel, "no model is loaded yet"))?,
         };
         let models = self
             .models
             .read()
-            .map_err(|_| ApiError::new(Kind::Internal, "internal", "registry lock poisoned"))?;
+            .map_err(|_| ApiError::new(ErrorCode::Internal, "registry lock poisoned"))?;
         match models.get(&name) {
             Some(slot) => Ok(slot.load_full()),
             None => {
                 let known: Vec<&str> = models.keys().map(String::as_str).collect();
                 Err(ApiError::new(
-                    Kind::NotFound,
-                    "unknown_model",
+                    ErrorCode::UnknownModel,
                     format!("unknown model {name:?}; serving: {}", known.join(", ")),
                 ))
             }
@@ -136,40 +160,33 @@ impl Registry {
 
     /// Fetches, verifies, loads and smoke-parses `version`, then swaps it in. The old version
     /// keeps serving if anything fails.
-    pub async fn load_and_swap(&self, name: &str, version: &str) -> Result<Arc<Served>, String> {
+    pub async fn load_and_swap(&self, name: &str, version: &str) -> Result<Arc<Served>, LoadError> {
         let _guard = self.loading.lock().await;
         let previous = self
             .models
             .read()
             .ok()
             .and_then(|m| m.get(name).map(|s| s.load().version.clone()));
-        if previous.as_deref() == Some(version) {
-            return self.snapshot(Some(name)).map_err(|e| e.to_string());
+        if previous.as_deref() == Some(version)
+            && let Some(slot) = self.models.read().ok().and_then(|m| m.get(name).cloned())
+        {
+            return Ok(slot.load_full());
         }
         let started = Instant::now();
         let outcome = async {
-            let (dir, _) = self
-                .store
-                .fetch(name, version, &self.cache)
-                .await
-                .map_err(|e| e.to_string())?;
-            let model = tokio::task::spawn_blocking(move || -> Result<Model, String> {
-                let model = Model::load(&dir).map_err(|e| e.to_string())?;
+            let (dir, _) = self.store.fetch(name, version, &self.cache).await?;
+            tokio::task::spawn_blocking(move || -> Result<Model, LoadError> {
+                let model = Model::load(&dir)?;
                 // Smoke test: a parse must produce a tree.
                 let words: Vec<String> = ["a", "small", "test", "."]
                     .iter()
                     .map(|s| s.to_string())
                     .collect();
                 let parsed = model.parse(&words, None, None, None);
-                let mut heads = vec![0];
-                heads.extend(&parsed.heads);
-                arcwright_parser::decode::check_tree(&heads)
-                    .map_err(|e| format!("smoke parse failed: {e}"))?;
+                arcwright_parser::decode::check_tree(&parsed.heads)?;
                 Ok(model)
             })
-            .await
-            .map_err(|e| format!("loader task failed: {e}"))??;
-            Ok::<_, String>(model)
+            .await?
         }
         .await;
         match outcome {
@@ -182,10 +199,7 @@ impl Registry {
                     load_seconds: started.elapsed().as_secs_f64(),
                 });
                 {
-                    let mut models = self
-                        .models
-                        .write()
-                        .map_err(|_| "registry lock poisoned".to_string())?;
+                    let mut models = self.models.write().map_err(|_| LoadError::Poisoned)?;
                     match models.get(name) {
                         Some(slot) => slot.store(served.clone()),
                         None => {
@@ -209,62 +223,58 @@ impl Registry {
                 });
                 Ok(served)
             }
-            Err(message) => {
+            Err(error) => {
                 self.record(SwapEvent {
                     name: name.into(),
                     from: previous,
                     to: version.into(),
                     ok: false,
-                    message: message.clone(),
+                    message: error.to_string(),
                     at_unix_ms: unix_ms(),
                 });
-                Err(message)
+                Err(error)
             }
         }
     }
 
-    /// One pass of following the store: every model with a `live` alias is loaded or swapped to
-    /// the alias's target. Returns how many models are serving.
+    /// Loads or swaps every model whose `live` alias moved since the last pass. A version that
+    /// failed to load is not tried again until the alias moves.
+    async fn apply(&self, changes: Vec<(String, arcwright_store::AliasRecord)>) {
+        for (name, record) in changes {
+            // Failures are logged, counted and listed in the swap history by `load_and_swap`.
+            let _ = self.load_and_swap(&name, &record.version).await;
+        }
+    }
+
+    /// One pass of following the store, now: every model with a `live` alias is loaded or
+    /// swapped to the alias's target. Returns how many models are serving.
     pub async fn follow_once(&self) -> usize {
-        let names = match self.store.names().await {
-            Ok(names) => names,
+        let polled = self.feed.lock().await.poll_now().await;
+        match polled {
+            Ok(changes) => self.apply(changes).await,
             Err(e) => {
-                tracing::warn!(error = %e, "cannot list models in the store; will retry");
-                return self.serving().len();
-            }
-        };
-        for name in names {
-            match self.store.alias(&name, "live").await {
-                Ok(Some(record)) => {
-                    let serving = self
-                        .models
-                        .read()
-                        .ok()
-                        .and_then(|m| m.get(&name).map(|s| s.load().version.clone()));
-                    let failed_before = self
-                        .swaps()
-                        .iter()
-                        .rev()
-                        .find(|e| e.name == name && e.to == record.version)
-                        .is_some_and(|e| !e.ok);
-                    if serving.as_deref() != Some(record.version.as_str()) && !failed_before {
-                        let _ = self.load_and_swap(&name, &record.version).await;
-                    }
-                }
-                Ok(None) => {}
-                Err(e) => {
-                    tracing::warn!(model = %name, error = %e, "cannot read the live alias; will retry")
-                }
+                tracing::warn!(error = %e, "cannot read the store's live aliases; will retry")
             }
         }
         self.serving().len()
     }
 
-    /// Follows the store forever, every `interval` (backing off up to 8× while the store fails).
-    pub async fn follow(self: Arc<Self>, interval: Duration) {
+    /// Follows the store until the task is dropped: a pass every polling interval, backing off
+    /// (up to 8× the interval) while the store fails; what is loaded keeps serving meanwhile.
+    pub async fn follow(self: Arc<Self>) {
         loop {
-            tokio::time::sleep(interval).await;
-            self.follow_once().await;
+            let mut feed = self.feed.lock().await;
+            let polled = feed.next_changes().await;
+            let retry_in = feed.delay();
+            drop(feed);
+            match polled {
+                Ok(changes) => self.apply(changes).await,
+                Err(e) => tracing::warn!(
+                    error = %e,
+                    retry_in_seconds = retry_in.as_secs_f64(),
+                    "cannot read the store's live aliases; still serving what is loaded"
+                ),
+            }
         }
     }
 }

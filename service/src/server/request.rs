@@ -6,21 +6,14 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use arcwright_parser::decode::Algorithm;
+use arcwright_parser::pipeline::{self, ParseOptions, StageObserver};
 use arcwright_parser::tokenize;
 use tokio::sync::Semaphore;
 
 use super::config::Limits;
-use super::errors::{ApiError, Kind};
+use super::errors::{ApiError, ErrorCode};
 use super::metrics::{self, Stage};
 use super::registry::{Registry, Served};
-
-/// Extra work a sentence's confidences may take to repair cancelled Matrix-Tree columns
-/// (multiply-adds; at most about 10 ms on this machine). Peaked scores on long sentences can need an
-/// elimination per word; past this, a word's confidence is left out rather than guessed.
-const CONFIDENCE_EFFORT: arcwright_parser::marginals::matrix_tree::Effort =
-    arcwright_parser::marginals::matrix_tree::Effort {
-        operations: 5_000_000,
-    };
 
 /// One input: raw text (may hold several sentences) or tokens (one sentence), optional tags.
 #[derive(Debug, Clone, Default)]
@@ -34,7 +27,8 @@ pub struct SentenceInput {
 #[derive(Debug, Clone, Default)]
 pub struct ParseJob {
     pub model: Option<String>,
-    pub decoder: Option<String>,
+    /// `None`: the model's default decoder.
+    pub decoder: Option<Algorithm>,
     pub confidence: bool,
     pub inputs: Vec<SentenceInput>,
 }
@@ -79,12 +73,13 @@ fn has_control(text: &str, allow_line_breaks: bool) -> Option<char> {
         .find(|c| c.is_control() && !(allow_line_breaks && matches!(c, '\n' | '\r' | '\t')))
 }
 
-fn decoder(name: Option<&str>) -> Result<Option<Algorithm>, ApiError> {
+/// The decoder a client named (absent or empty: the model's default).
+pub fn decoder_from_name(name: Option<&str>) -> Result<Option<Algorithm>, ApiError> {
     match name.filter(|n| !n.is_empty()) {
         None => Ok(None),
         Some(n) => Algorithm::from_name(n).map(Some).ok_or_else(|| {
-            ApiError::invalid(
-                "unknown_decoder",
+            ApiError::new(
+                ErrorCode::UnknownDecoder,
                 format!("unknown decoder {n:?}; use \"projective\" or \"non-projective\""),
             )
         }),
@@ -98,11 +93,11 @@ impl Engine {
         let limits = &self.limits;
         let batch = inputs.len() > 1;
         if inputs.is_empty() {
-            return Err(ApiError::invalid("empty_batch", "no sentences given"));
+            return Err(ApiError::new(ErrorCode::EmptyBatch, "no sentences given"));
         }
         if inputs.len() > limits.max_sentences {
-            return Err(ApiError::invalid(
-                "batch_too_large",
+            return Err(ApiError::new(
+                ErrorCode::BatchTooLarge,
                 format!(
                     "{} sentences in the batch; the limit is {}",
                     inputs.len(),
@@ -112,41 +107,43 @@ impl Engine {
         }
         let mut work = Vec::with_capacity(inputs.len());
         for (index, input) in inputs.into_iter().enumerate() {
-            let invalid = |code: &'static str, message: String| {
+            let invalid = |code: ErrorCode, message: String| {
                 if batch {
-                    ApiError::invalid(code, format!("sentence {index}: {message}"))
+                    ApiError::new(code, format!("sentence {index}: {message}"))
                 } else {
-                    ApiError::invalid(code, message)
+                    ApiError::new(code, message)
                 }
             };
             match (input.text, input.tokens) {
                 (Some(_), Some(_)) => {
                     return Err(invalid(
-                        "text_and_tokens",
+                        ErrorCode::TextAndTokens,
                         "give either text or tokens, not both".into(),
                     ));
                 }
-                (None, None) => return Err(invalid("no_input", "give text or tokens".into())),
+                (None, None) => {
+                    return Err(invalid(ErrorCode::NoInput, "give text or tokens".into()));
+                }
                 (Some(text), None) => {
                     if input.tags.is_some() {
                         return Err(invalid(
-                            "tags_without_tokens",
+                            ErrorCode::TagsWithoutTokens,
                             "tags can only be given with tokens".into(),
                         ));
                     }
                     if let Some(c) = has_control(&text, true) {
                         return Err(invalid(
-                            "control_character",
+                            ErrorCode::ControlCharacter,
                             format!("text contains the control character {c:?}"),
                         ));
                     }
                     let sentences = tokenize::sentences(&text);
                     if sentences.is_empty() {
-                        return Err(invalid("empty_text", "text has no words".into()));
+                        return Err(invalid(ErrorCode::EmptyText, "text has no words".into()));
                     }
                     if sentences.len() > limits.max_sentences {
                         return Err(invalid(
-                            "too_many_sentences",
+                            ErrorCode::TooManySentences,
                             format!(
                                 "text holds {} sentences; the limit is {}",
                                 sentences.len(),
@@ -157,7 +154,7 @@ impl Engine {
                     for forms in sentences {
                         if forms.len() > limits.max_tokens {
                             return Err(invalid(
-                                "sentence_too_long",
+                                ErrorCode::SentenceTooLong,
                                 format!(
                                     "a sentence has {} tokens; the limit is {}",
                                     forms.len(),
@@ -174,11 +171,14 @@ impl Engine {
                 }
                 (None, Some(tokens)) => {
                     if tokens.is_empty() {
-                        return Err(invalid("empty_tokens", "tokens is an empty list".into()));
+                        return Err(invalid(
+                            ErrorCode::EmptyTokens,
+                            "tokens is an empty list".into(),
+                        ));
                     }
                     if tokens.len() > limits.max_tokens {
                         return Err(invalid(
-                            "sentence_too_long",
+                            ErrorCode::SentenceTooLong,
                             format!(
                                 "{} tokens; the limit is {}",
                                 tokens.len(),
@@ -188,11 +188,14 @@ impl Engine {
                     }
                     for (i, token) in tokens.iter().enumerate() {
                         if token.trim().is_empty() {
-                            return Err(invalid("empty_token", format!("token {i} is empty")));
+                            return Err(invalid(
+                                ErrorCode::EmptyToken,
+                                format!("token {i} is empty"),
+                            ));
                         }
                         if let Some(c) = has_control(token, false) {
                             return Err(invalid(
-                                "control_character",
+                                ErrorCode::ControlCharacter,
                                 format!("token {i} contains the control character {c:?}"),
                             ));
                         }
@@ -200,7 +203,7 @@ impl Engine {
                     if let Some(tags) = &input.tags {
                         if tags.len() != tokens.len() {
                             return Err(invalid(
-                                "tags_mismatch",
+                                ErrorCode::TagsMismatch,
                                 format!(
                                     "{} tags for {} tokens; give one tag per token",
                                     tags.len(),
@@ -214,7 +217,7 @@ impl Engine {
                             .find(|(_, t)| t.trim().is_empty() || has_control(t, false).is_some())
                         {
                             return Err(invalid(
-                                "bad_tag",
+                                ErrorCode::BadTag,
                                 format!("tag {i} is empty or has control characters"),
                             ));
                         }
@@ -248,7 +251,7 @@ impl Engine {
         }
         let code = match &result {
             Ok(_) => "ok",
-            Err(e) => e.code,
+            Err(e) => e.code.as_str(),
         };
         metrics::REQUESTS
             .with_label_values(&[api, method, code])
@@ -263,12 +266,15 @@ impl Engine {
         api: &str,
     ) -> Result<ParseOutcome, ApiError> {
         let started = Instant::now();
-        let algorithm = decoder(job.decoder.as_deref())?;
+        let options = ParseOptions {
+            decoder: job.decoder,
+            confidence: job.confidence,
+            ..ParseOptions::default()
+        };
         let Ok(permit) = self.permits.clone().try_acquire_owned() else {
             metrics::SHED.with_label_values(&[api]).inc();
             return Err(ApiError::new(
-                Kind::ResourceExhausted,
-                "overloaded",
+                ErrorCode::Overloaded,
                 format!(
                     "{} requests in flight; retry later",
                     self.limits.max_in_flight
@@ -279,7 +285,6 @@ impl Engine {
         let _in_flight = scopeguard(|| metrics::IN_FLIGHT.dec());
         let served: Arc<Served> = self.registry.snapshot(job.model.as_deref())?;
         let inputs = job.inputs.len();
-        let confidence = job.confidence;
         let tokenize_started = Instant::now();
         let work = self.validate(job.inputs)?;
         // Each sentence's share of the request's checking and tokenizing, so that a batch's
@@ -302,14 +307,7 @@ impl Engine {
                     }
                     Some((
                         w.input,
-                        parse_sentence(
-                            &snapshot,
-                            &w,
-                            algorithm,
-                            confidence,
-                            tokenize_seconds,
-                            true,
-                        ),
+                        parse_sentence(&snapshot, w, &options, tokenize_seconds, true),
                     ))
                 })
                 .collect();
@@ -321,15 +319,13 @@ impl Engine {
             Ok(Ok(parsed)) => parsed,
             Ok(Err(_)) => {
                 return Err(ApiError::new(
-                    Kind::Internal,
-                    "internal",
+                    ErrorCode::Internal,
                     "the parsing task ended unexpectedly",
                 ));
             }
             Err(_) => {
                 return Err(ApiError::new(
-                    Kind::DeadlineExceeded,
-                    "deadline_exceeded",
+                    ErrorCode::DeadlineExceeded,
                     format!(
                         "not finished within the deadline of {:.3} s",
                         deadline.as_secs_f64()
@@ -341,8 +337,7 @@ impl Engine {
         for entry in parsed {
             let Some((input, sentence)) = entry else {
                 return Err(ApiError::new(
-                    Kind::DeadlineExceeded,
-                    "deadline_exceeded",
+                    ErrorCode::DeadlineExceeded,
                     "not finished within the deadline",
                 ));
             };
@@ -356,7 +351,6 @@ impl Engine {
     }
 }
 
-/// Parses one sentence and records its stage times.
 /// Parses `forms` exactly as a request would, with or without recording metrics: the
 /// benchmark of metrics overhead (`cargo bench -p arcwright --bench metrics_overhead`) compares
 /// the two.
@@ -366,105 +360,70 @@ pub fn parse_for_benchmark(served: &Served, forms: &[String], record_metrics: bo
         forms: forms.to_vec(),
         tags: None,
     };
-    parse_sentence(
-        served,
-        &work,
-        Some(Algorithm::Projective),
-        false,
-        0.0,
-        record_metrics,
-    )
-    .len()
+    let options = ParseOptions {
+        decoder: Some(Algorithm::Projective),
+        ..ParseOptions::default()
+    };
+    parse_sentence(served, work, &options, 0.0, record_metrics).len()
 }
 
+/// Collects the pipeline's stage times into the service's stage metrics (recorded together at
+/// the end of the sentence: one lock, no per-stage label lookups).
+struct StageTimes {
+    seconds: [f64; metrics::STAGES.len()],
+}
+
+impl StageObserver for StageTimes {
+    fn stage_done(&mut self, stage: pipeline::Stage, seconds: f64) {
+        let stage = match stage {
+            pipeline::Stage::Tag => Stage::Tag,
+            pipeline::Stage::Score => Stage::Score,
+            pipeline::Stage::Decode => Stage::Decode,
+            // Confidences and labels count towards the total only.
+            pipeline::Stage::Confidence | pipeline::Stage::Label => return,
+        };
+        tracing::debug!(stage = stage.name(), seconds, "stage done");
+        self.seconds[stage as usize] = seconds;
+    }
+}
+
+/// Parses one sentence through the library's pipeline and records its stage times.
 fn parse_sentence(
     served: &Served,
-    work: &Work,
-    algorithm: Option<Algorithm>,
-    confidence: bool,
+    work: Work,
+    options: &ParseOptions,
     tokenize_seconds: f64,
     record_metrics: bool,
 ) -> Vec<TokenOut> {
     let model = &served.model;
-    let decoder = algorithm.unwrap_or(model.default_decoder);
-    let decoder_name = decoder.name();
+    let decoder = options.decoder.unwrap_or(model.default_decoder);
     let tokens = work.forms.len();
-    let _span = tracing::debug_span!("sentence", tokens, decoder = decoder_name).entered();
-    // Stage durations, recorded together at the end (one lock, no per-stage label lookups).
-    let mut stage_seconds = [0.0; metrics::STAGES.len()];
-    let mut observe = |stage: Stage, seconds: f64| {
-        tracing::debug!(stage = stage.name(), seconds, "stage done");
-        stage_seconds[stage as usize] = seconds;
+    let _span = tracing::debug_span!("sentence", tokens, decoder = decoder.name()).entered();
+    let mut times = StageTimes {
+        seconds: [0.0; metrics::STAGES.len()],
     };
+    times.seconds[Stage::Tokenize as usize] = tokenize_seconds;
     let total = Instant::now();
-    observe(Stage::Tokenize, tokenize_seconds);
-    let t = Instant::now();
-    let tags = match &work.tags {
-        Some(tags) => tags.clone(),
-        None => model.tagger.tag(&work.forms),
-    };
-    // Same rule as `Model::parse`: morphology is tagged only for a model whose features use it.
-    let morph = model
-        .morph_tagger
-        .as_ref()
-        .filter(|_| model.features.morphology)
-        .map(|m| m.tag(&work.forms));
-    observe(Stage::Tag, t.elapsed().as_secs_f64());
-    let t = Instant::now();
-    let features = model.sentence_features(&work.forms, &tags, morph.as_deref().unwrap_or(&[]));
-    let scores = arcwright_parser::model::Model::arc_scores(
-        &features,
-        &model.arc_weights,
-        model.features.hash_bits,
-    );
-    observe(Stage::Score, t.elapsed().as_secs_f64());
-    let t = Instant::now();
-    let decoded = arcwright_parser::decode::decode(
-        &scores,
-        decoder,
-        arcwright_parser::decode::RootConstraint::SingleRoot,
-    );
-    observe(Stage::Decode, t.elapsed().as_secs_f64());
-    let marginals = confidence.then(|| {
-        arcwright_parser::marginals::marginals_within(
-            &scores,
-            decoder,
-            arcwright_parser::decode::RootConstraint::SingleRoot,
-            CONFIDENCE_EFFORT,
-        )
-    });
-    let tokens = (1..decoded.heads.len())
-        .map(|m| {
-            let head = decoded.heads[m];
-            let label = arcwright_parser::model::Model::best_label(
-                &features,
-                head,
-                m,
-                &model.label_weights,
-                model.label_bits,
-                model.labels.len(),
-            );
-            TokenOut {
-                id: m,
-                form: work.forms[m - 1].clone(),
-                tag: tags[m - 1].clone(),
-                head,
-                label: model.labels[label].clone(),
-                // A guard: the marginals recompute any column that loses digits to cancellation
-                // (arcwright_parser::marginals::matrix_tree), so every column should sum to 1;
-                // one that does not would be left out rather than reported wrong.
-                confidence: marginals.as_ref().and_then(|p| {
-                    let total: f64 = (0..decoded.heads.len()).map(|h| p.probability(h, m)).sum();
-                    (p.reliable(m) && (total - 1.0).abs() <= 1e-6).then(|| p.probability(head, m))
-                }),
-            }
-        })
-        .collect();
-    observe(Stage::Total, total.elapsed().as_secs_f64());
+    let parsed = model.parse_observed(&work.forms, work.tags.as_deref(), options, &mut times);
+    times.seconds[Stage::Total as usize] = total.elapsed().as_secs_f64();
     if record_metrics {
-        metrics::record_sentence(&stage_seconds, decoder, work.forms.len());
+        metrics::record_sentence(&times.seconds, parsed.decoder, tokens);
     }
-    tokens
+    let mut confidences = parsed.confidences.map(Vec::into_iter);
+    work.forms
+        .into_iter()
+        .zip(parsed.tags)
+        .zip(parsed.labels)
+        .zip(parsed.heads.arcs())
+        .map(|(((form, tag), label), (id, head))| TokenOut {
+            id,
+            form,
+            tag,
+            head,
+            label,
+            confidence: confidences.as_mut().and_then(|c| c.next().flatten()),
+        })
+        .collect()
 }
 
 /// Runs `f` when dropped.
