@@ -2,8 +2,8 @@
 //! S3-compatible object store, with aliases (`live`, …) and a change feed.
 //!
 //! **Invariants.** This crate knows artifacts and bytes, not parsing: a model is a directory of
-//! files; the manifest records each file's size and SHA-256, plus metadata copied from the
-//! model's own `model.json` when present. A published version is immutable (its objects are
+//! files; the manifest records each file's size and SHA-256, plus the metadata its publisher
+//! gives ([`ArtifactInfo`]); nothing here reads a payload file's contents. A published version is immutable (its objects are
 //! written once, with create-only puts where the backend supports them). A version is visible
 //! only once its manifest exists, and the manifest is written last, so a partial publish is never
 //! listed or loaded. An alias only ever points at a version whose every file was verified.
@@ -28,7 +28,7 @@ mod objects;
 mod store;
 mod watch;
 
-pub use manifest::{FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
+pub use manifest::{ArtifactInfo, FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
 pub use names::{validate_name, validate_version};
 pub use objects::{ObjectUrl, join_url};
 pub use store::{AliasRecord, Store, StoreError, VersionSummary};

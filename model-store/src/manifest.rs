@@ -14,6 +14,21 @@ pub struct FileEntry {
     pub sha256: String,
 }
 
+/// What the publisher says about an artifact, copied into its manifest. The store does not read
+/// the artifact's files to find it: it knows bytes, and the caller knows the format.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct ArtifactInfo {
+    /// The artifact's own format name and version.
+    pub format: Option<String>,
+    /// Settings worth listing (free-form JSON).
+    pub settings: serde_json::Value,
+    pub labels: Vec<String>,
+    /// Fingerprint of the training data.
+    pub training_fingerprint: Option<String>,
+    /// Evaluation scores (free-form JSON, e.g. `arcwright eval` output).
+    pub scores: Option<serde_json::Value>,
+}
+
 /// Everything known about a version; written last when publishing.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Manifest {
@@ -22,14 +37,14 @@ pub struct Manifest {
     pub version: String,
     /// UTC, RFC 3339.
     pub created: String,
-    /// The model directory's own format (from its `model.json`), if it has one.
+    /// The artifact's own format, as the publisher gave it ([`ArtifactInfo`]).
     pub artifact_format: Option<String>,
-    /// Feature and decoder settings copied from `model.json`.
+    /// Settings as the publisher gave them.
     pub settings: serde_json::Value,
     pub labels: Vec<String>,
-    /// Fingerprint of the training data, from `model.json`'s training facts.
+    /// Fingerprint of the training data, as the publisher gave it.
     pub training_fingerprint: Option<String>,
-    /// Evaluation scores given at publishing (free-form JSON, e.g. `arcwright eval` output).
+    /// Evaluation scores given at publishing.
     pub scores: Option<serde_json::Value>,
     pub files: Vec<FileEntry>,
 }

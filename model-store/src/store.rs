@@ -13,7 +13,7 @@ use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
 use crate::layout;
-use crate::manifest::{FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
+use crate::manifest::{ArtifactInfo, FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
 use crate::names::{validate_name, validate_version};
 
 /// What can go wrong, with the identifiers a person needs.
@@ -97,30 +97,16 @@ fn backend(operation: &'static str, key: &Path) -> impl FnOnce(object_store::Err
     }
 }
 
-/// RFC 3339 UTC time and the compact form used in version ids, from the system clock.
+/// RFC 3339 UTC time (milliseconds) and the compact form used in version ids (microseconds),
+/// from the system clock.
 fn now() -> (String, String) {
-    let elapsed = SystemTime::now()
-        .duration_since(UNIX_EPOCH)
-        .unwrap_or_default();
-    let seconds = elapsed.as_secs() as i64;
-    let millis = elapsed.subsec_millis();
-    let micros = elapsed.subsec_micros();
-    let (days, rest) = (seconds.div_euclid(86_400), seconds.rem_euclid(86_400));
-    // Civil date from days since 1970-01-01 (H. Hinnant's algorithm).
-    let z = days + 719_468;
-    let era = z.div_euclid(146_097);
-    let doe = z.rem_euclid(146_097);
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let day = doy - (153 * mp + 2) / 5 + 1;
-    let month = if mp < 10 { mp + 3 } else { mp - 9 };
-    let year = yoe + era * 400 + i64::from(month <= 2);
-    let (h, m, s) = (rest / 3600, (rest % 3600) / 60, rest % 60);
-    (
-        format!("{year:04}-{month:02}-{day:02}T{h:02}:{m:02}:{s:02}.{millis:03}Z"),
-        format!("{year:04}{month:02}{day:02}T{h:02}{m:02}{s:02}.{micros:06}Z"),
-    )
+    timestamps(SystemTime::now())
+}
+
+fn timestamps(time: SystemTime) -> (String, String) {
+    let micros = humantime::format_rfc3339_micros(time).to_string();
+    let compact: String = micros.chars().filter(|c| !matches!(c, '-' | ':')).collect();
+    (humantime::format_rfc3339_millis(time).to_string(), compact)
 }
 
 /// Maps an I/O error on `path` to `StoreError::Io`.
@@ -277,13 +263,14 @@ impl Store {
         }
     }
 
-    /// Publishes the files of `dir` as a new version of `name`; returns its manifest.
-    /// Payload first, manifest last: until the manifest exists the version does not exist.
+    /// Publishes the files of `dir` as a new version of `name`, described by `info`; returns
+    /// its manifest. Payload first, manifest last: until the manifest exists the version does
+    /// not exist.
     pub async fn publish(
         &self,
         name: &str,
         dir: &FsPath,
-        scores: Option<serde_json::Value>,
+        info: ArtifactInfo,
     ) -> Result<Manifest, StoreError> {
         validate_name("model", name)?;
         let mut entries: Vec<PathBuf> = std::fs::read_dir(dir)
@@ -343,36 +330,16 @@ impl Store {
         hasher.update(nanos.to_le_bytes());
         hasher.update(std::process::id().to_le_bytes());
         let version = format!("{stamp}-{}", &hex::encode(hasher.finalize())[..8]);
-        let description: serde_json::Value = entries
-            .iter()
-            .position(|p| p.file_name().is_some_and(|n| n == "model.json"))
-            .and_then(|i| serde_json::from_slice(&contents[i]).ok())
-            .unwrap_or(serde_json::Value::Null);
-        let settings = serde_json::json!({
-            "hash_bits": description.get("hash_bits"),
-            "morphology": description.get("morphology"),
-            "label_bits": description.get("label_bits"),
-            "default_decoder": description.get("default_decoder"),
-        });
         let manifest = Manifest {
             schema: SCHEMA_VERSION.to_string(),
             name: name.to_string(),
             version: version.clone(),
             created,
-            artifact_format: description
-                .get("format")
-                .and_then(|f| f.as_str())
-                .map(str::to_string),
-            settings,
-            labels: description
-                .get("labels")
-                .and_then(|l| serde_json::from_value(l.clone()).ok())
-                .unwrap_or_default(),
-            training_fingerprint: description
-                .pointer("/training/train_fingerprint_fnv64")
-                .and_then(|f| f.as_str())
-                .map(str::to_string),
-            scores,
+            artifact_format: info.format,
+            settings: info.settings,
+            labels: info.labels,
+            training_fingerprint: info.training_fingerprint,
+            scores: info.scores,
             files,
         };
         for (entry, bytes) in manifest.files.iter().zip(contents) {
@@ -790,5 +757,27 @@ impl Store {
             deleted.push(version.clone());
         }
         Ok(deleted)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Fixed instants, their RFC 3339 form worked out by hand.
+    #[test]
+    fn timestamps_are_rfc3339_and_the_compact_version_stamp() {
+        let check = |seconds: u64, micros: u64, rfc3339: &str, compact: &str| {
+            let time = UNIX_EPOCH + Duration::from_secs(seconds) + Duration::from_micros(micros);
+            assert_eq!(timestamps(time), (rfc3339.to_string(), compact.to_string()));
+        };
+        check(0, 0, "1970-01-01T00:00:00.000Z", "19700101T000000.000000Z");
+        // 2024-02-29 (a leap day) 23:59:59 UTC = 1709251199 s.
+        check(
+            1_709_251_199,
+            123_456,
+            "2024-02-29T23:59:59.123Z",
+            "20240229T235959.123456Z",
+        );
     }
 }

@@ -5,7 +5,7 @@
 use std::path::Path;
 use std::time::Duration;
 
-use arcwright_store::{AliasWatcher, Store, StoreError};
+use arcwright_store::{AliasFeed, AliasWatcher, ArtifactInfo, Store, StoreError};
 
 /// A small artifact directory: a model.json and two payload files.
 fn artifact(dir: &Path, seed: u8) {
@@ -40,7 +40,12 @@ async fn publish_list_fetch_round_trip_gives_identical_bytes() {
         .publish(
             "turkish",
             &tmp.path().join("model"),
-            Some(serde_json::json!({"uas": 84.2})),
+            ArtifactInfo {
+                format: Some("arcwright-model/1".to_string()),
+                labels: vec!["a".to_string(), "b".to_string()],
+                scores: Some(serde_json::json!({"uas": 84.2})),
+                ..ArtifactInfo::default()
+            },
         )
         .await
         .expect("publish");
@@ -74,7 +79,7 @@ async fn damaged_versions_are_refused_with_clear_errors() {
     artifact(&tmp.path().join("model"), 1);
     let store = Store::open(&store_dir(tmp.path())).expect("open");
     let model_dir = tmp.path().join("model");
-    let publish = || store.publish("m", &model_dir, None);
+    let publish = || store.publish("m", &model_dir, ArtifactInfo::default());
     let good = publish().await.expect("publish").version;
     store.set_alias("m", "live", &good).await.expect("promote");
 
@@ -191,7 +196,11 @@ async fn aliases_promote_roll_back_and_protect_from_pruning() {
         artifact(&tmp.path().join(format!("model{seed}")), seed);
         versions.push(
             store
-                .publish("m", &tmp.path().join(format!("model{seed}")), None)
+                .publish(
+                    "m",
+                    &tmp.path().join(format!("model{seed}")),
+                    ArtifactInfo::default(),
+                )
                 .await
                 .expect("publish")
                 .version,
@@ -260,7 +269,12 @@ async fn concurrent_publishes_of_one_name_get_distinct_versions() {
     let tasks: Vec<_> = (0..8)
         .map(|_| {
             let (store, dir) = (store.clone(), dir.clone());
-            tokio::spawn(async move { store.publish("m", &dir, None).await.map(|m| m.version) })
+            tokio::spawn(async move {
+                store
+                    .publish("m", &dir, ArtifactInfo::default())
+                    .await
+                    .map(|m| m.version)
+            })
         })
         .collect();
     let mut versions = Vec::new();
@@ -289,7 +303,7 @@ async fn bad_names_are_rejected_before_touching_the_store() {
     ];
     for (name, expected) in cases {
         let error = store
-            .publish(name, &tmp.path().join("model"), None)
+            .publish(name, &tmp.path().join("model"), ArtifactInfo::default())
             .await
             .expect_err("bad name")
             .to_string();
@@ -309,12 +323,12 @@ async fn the_change_feed_reports_each_new_target_once() {
     artifact(&tmp.path().join("model"), 1);
     let store = Store::open(&store_dir(tmp.path())).expect("open");
     let first = store
-        .publish("m", &tmp.path().join("model"), None)
+        .publish("m", &tmp.path().join("model"), ArtifactInfo::default())
         .await
         .expect("publish")
         .version;
     let second = store
-        .publish("m", &tmp.path().join("model"), None)
+        .publish("m", &tmp.path().join("model"), ArtifactInfo::default())
         .await
         .expect("publish")
         .version;
@@ -349,6 +363,150 @@ async fn the_change_feed_reports_each_new_target_once() {
         None,
         "reported once"
     );
+}
+
+/// An in-memory object store that can be taken down and brought back, to test how the feed
+/// behaves while the store fails.
+#[derive(Debug)]
+struct Switchable {
+    inner: object_store::memory::InMemory,
+    down: std::sync::atomic::AtomicBool,
+}
+
+impl std::fmt::Display for Switchable {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("switchable in-memory store")
+    }
+}
+
+impl Switchable {
+    fn check(&self) -> object_store::Result<()> {
+        if self.down.load(std::sync::atomic::Ordering::SeqCst) {
+            Err(object_store::Error::Generic {
+                store: "switchable",
+                source: "the store is down".into(),
+            })
+        } else {
+            Ok(())
+        }
+    }
+}
+
+#[async_trait::async_trait]
+impl object_store::ObjectStore for Switchable {
+    async fn put_opts(
+        &self,
+        location: &object_store::path::Path,
+        payload: object_store::PutPayload,
+        opts: object_store::PutOptions,
+    ) -> object_store::Result<object_store::PutResult> {
+        self.check()?;
+        self.inner.put_opts(location, payload, opts).await
+    }
+    async fn put_multipart_opts(
+        &self,
+        location: &object_store::path::Path,
+        opts: object_store::PutMultipartOptions,
+    ) -> object_store::Result<Box<dyn object_store::MultipartUpload>> {
+        self.check()?;
+        self.inner.put_multipart_opts(location, opts).await
+    }
+    async fn get_opts(
+        &self,
+        location: &object_store::path::Path,
+        options: object_store::GetOptions,
+    ) -> object_store::Result<object_store::GetResult> {
+        self.check()?;
+        self.inner.get_opts(location, options).await
+    }
+    async fn delete(&self, location: &object_store::path::Path) -> object_store::Result<()> {
+        self.check()?;
+        self.inner.delete(location).await
+    }
+    fn list(
+        &self,
+        prefix: Option<&object_store::path::Path>,
+    ) -> futures::stream::BoxStream<'static, object_store::Result<object_store::ObjectMeta>> {
+        match self.check() {
+            Ok(()) => self.inner.list(prefix),
+            Err(e) => Box::pin(futures::stream::once(async move { Err(e) })),
+        }
+    }
+    async fn list_with_delimiter(
+        &self,
+        prefix: Option<&object_store::path::Path>,
+    ) -> object_store::Result<object_store::ListResult> {
+        self.check()?;
+        self.inner.list_with_delimiter(prefix).await
+    }
+    async fn copy(
+        &self,
+        from: &object_store::path::Path,
+        to: &object_store::path::Path,
+    ) -> object_store::Result<()> {
+        self.check()?;
+        self.inner.copy(from, to).await
+    }
+    async fn copy_if_not_exists(
+        &self,
+        from: &object_store::path::Path,
+        to: &object_store::path::Path,
+    ) -> object_store::Result<()> {
+        self.check()?;
+        self.inner.copy_if_not_exists(from, to).await
+    }
+}
+
+/// The service's feed over every model: reports each move once, backs off (interval × 2ⁿ, at
+/// most 8×) while the store is down without losing the move made meanwhile, and returns to the
+/// interval once the store answers again.
+#[tokio::test]
+async fn the_feed_backs_off_while_the_store_is_down_and_catches_up() {
+    use std::sync::atomic::Ordering;
+    let tmp = tempfile::tempdir().expect("tempdir");
+    artifact(&tmp.path().join("model"), 1);
+    let backend = std::sync::Arc::new(Switchable {
+        inner: object_store::memory::InMemory::new(),
+        down: std::sync::atomic::AtomicBool::new(false),
+    });
+    let store = Store::from_objects(backend.clone(), "memory://switchable", true);
+    let model_dir = tmp.path().join("model");
+    let publish = || store.publish("m", &model_dir, ArtifactInfo::default());
+    let first = publish().await.expect("publish").version;
+    let second = publish().await.expect("publish").version;
+    store.set_alias("m", "live", &first).await.expect("promote");
+    let interval = Duration::from_millis(10);
+    let mut feed = AliasFeed::new(store.clone(), "live", interval);
+    let changes = feed.poll_now().await.expect("poll");
+    assert_eq!(changes.len(), 1);
+    assert_eq!(
+        (changes[0].0.as_str(), &changes[0].1.version),
+        ("m", &first)
+    );
+    assert!(
+        feed.poll_now().await.expect("poll").is_empty(),
+        "reported once"
+    );
+
+    store
+        .set_alias("m", "live", &second)
+        .await
+        .expect("promote");
+    backend.down.store(true, Ordering::SeqCst);
+    let mut delays = Vec::new();
+    for _ in 0..5 {
+        let error = feed.next_changes().await.expect_err("the store is down");
+        assert!(error.to_string().contains("the store is down"), "{error}");
+        delays.push(feed.delay().as_millis());
+    }
+    assert_eq!(delays, [20, 40, 80, 80, 80]);
+    assert_eq!(feed.failures(), 5);
+
+    backend.down.store(false, Ordering::SeqCst);
+    let changes = feed.next_changes().await.expect("the store is back");
+    assert_eq!(changes.len(), 1, "the move made while the store was down");
+    assert_eq!(changes[0].1.version, second);
+    assert_eq!(feed.delay(), interval);
 }
 
 #[tokio::test]

@@ -40,6 +40,18 @@ pub enum ModelError {
     Format { path: String, message: String },
 }
 
+/// What a model directory says about itself, read from `model.json` alone (no weights): for
+/// listings and store manifests.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ModelSummary {
+    pub format: String,
+    /// Feature and decoder settings.
+    pub settings: serde_json::Value,
+    pub labels: Vec<String>,
+    /// FNV-64 fingerprint of the training data, when the training facts record it.
+    pub training_fingerprint: Option<String>,
+}
+
 #[derive(Serialize, Deserialize)]
 struct Description {
     format: String,
@@ -86,7 +98,47 @@ fn read_f32(path: &Path, expected: usize) -> Result<Vec<f32>, ModelError> {
     ))
 }
 
+fn read_description(dir: &Path) -> Result<Description, ModelError> {
+    let path = dir.join("model.json");
+    let text = std::fs::read_to_string(&path).map_err(|source| ModelError::Io {
+        path: path.display().to_string(),
+        source,
+    })?;
+    let format_error = |message: String| ModelError::Format {
+        path: path.display().to_string(),
+        message,
+    };
+    let d: Description = serde_json::from_str(&text).map_err(|e| format_error(e.to_string()))?;
+    if d.format != FORMAT {
+        return Err(format_error(format!(
+            "format {:?}; this build reads {FORMAT:?}",
+            d.format
+        )));
+    }
+    Ok(d)
+}
+
 impl Model {
+    /// Reads `model.json` of a model directory (not the weights).
+    pub fn summary(dir: &Path) -> Result<ModelSummary, ModelError> {
+        let d = read_description(dir)?;
+        Ok(ModelSummary {
+            format: d.format,
+            settings: serde_json::json!({
+                "hash_bits": d.hash_bits,
+                "morphology": d.morphology,
+                "label_bits": d.label_bits,
+                "default_decoder": d.default_decoder,
+            }),
+            labels: d.labels,
+            training_fingerprint: d
+                .training
+                .get("train_fingerprint_fnv64")
+                .and_then(|f| f.as_str())
+                .map(str::to_string),
+        })
+    }
+
     /// The linear scorer (every model of this format has one).
     pub fn linear(&self) -> &LinearScorer {
         match &self.scorer {
@@ -140,23 +192,11 @@ impl Model {
     }
 
     pub fn load(dir: &Path) -> Result<Model, ModelError> {
-        let path = dir.join("model.json");
-        let text = std::fs::read_to_string(&path).map_err(|source| ModelError::Io {
-            path: path.display().to_string(),
-            source,
-        })?;
+        let d = read_description(dir)?;
         let format_error = |message: String| ModelError::Format {
-            path: path.display().to_string(),
+            path: dir.join("model.json").display().to_string(),
             message,
         };
-        let d: Description =
-            serde_json::from_str(&text).map_err(|e| format_error(e.to_string()))?;
-        if d.format != FORMAT {
-            return Err(format_error(format!(
-                "format {:?}; this build reads {FORMAT:?}",
-                d.format
-            )));
-        }
         if !(10..=30).contains(&d.hash_bits)
             || !(10..=30).contains(&d.label_bits)
             || !(10..=30).contains(&d.tagger_bits)

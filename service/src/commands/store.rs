@@ -60,8 +60,9 @@ async fn run_action(store: &Store, action: &StoreAction) -> Result<(), Failure> 
                 }
                 None => None,
             };
+            let info = artifact_info(dir, scores).map_err(Failure::bad_input)?;
             let started = std::time::Instant::now();
-            let manifest = store.publish(name, dir, scores).await.map_err(failure)?;
+            let manifest = store.publish(name, dir, info).await.map_err(failure)?;
             eprintln!(
                 "published {name} {} ({} files, {} bytes) to {} in {:.2} s",
                 manifest.version,
@@ -249,6 +250,21 @@ async fn run_action(store: &Store, action: &StoreAction) -> Result<(), Failure> 
         }
     }
     Ok(())
+}
+
+/// What the store's manifest records of a model directory, from its `model.json`.
+pub fn artifact_info(
+    dir: &std::path::Path,
+    scores: Option<serde_json::Value>,
+) -> Result<arcwright_store::ArtifactInfo, arcwright_parser::model::ModelError> {
+    let summary = arcwright_parser::model::Model::summary(dir)?;
+    Ok(arcwright_store::ArtifactInfo {
+        format: Some(summary.format),
+        settings: summary.settings,
+        labels: summary.labels,
+        training_fingerprint: summary.training_fingerprint,
+        scores,
+    })
 }
 
 /// Milliseconds since the Unix epoch, for watch output.

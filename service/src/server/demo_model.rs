@@ -39,7 +39,9 @@ pub async fn publish_demo_model(store: &Store) -> Result<(), StartupError> {
     .await
     .map_err(|e| StartupError::Demo(e.to_string()))?
     .map_err(StartupError::Demo)?;
-    let manifest = store.publish("demo", &dir, None).await?;
+    let info = crate::commands::store::artifact_info(&dir, None)
+        .map_err(|e| StartupError::Demo(e.to_string()))?;
+    let manifest = store.publish("demo", &dir, info).await?;
     store.set_alias("demo", "live", &manifest.version).await?;
     let _ = std::fs::remove_dir_all(&dir);
     tracing::info!(version = %manifest.version, seconds = started.elapsed().as_secs_f64(), "demo model published as demo/live");
