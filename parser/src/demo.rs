@@ -8,7 +8,7 @@
 //! noun crosses the arc from the root to the verb: a non-projective tree.
 
 use crate::conllu::{Item, Sentence, Word};
-use crate::features::scramble as mix;
+use crate::hashing::scramble as mix;
 
 const DETERMINERS: [&str; 4] = ["the", "a", "every", "this"];
 const ADJECTIVES: [&str; 8] = [

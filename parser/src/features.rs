@@ -13,6 +13,7 @@
 //! per tag present) when the inventory has at most 64 tags, else from prefix counts over the
 //! inventory (O(tags) per arc); either way never O(distance).
 
+use crate::hashing::{hash_str, mix};
 use crate::text;
 
 /// Feature options stored with a model.
@@ -40,29 +41,6 @@ pub struct TokenView<'a> {
     pub tag: &'a str,
     /// Morphology summary, e.g. "Case=Dat|Possessive=P3sg" (empty when none or not used).
     pub morph: &'a str,
-}
-
-/// Combines two hashes: rotate, xor, one multiply by an odd constant (the FxHash pattern).
-/// Feature indices take the *top* bits of the result, which the multiply makes depend on every
-/// input bit. Cheap on purpose: scoring computes about sixty of these per arc for n² arcs, and a
-/// full finaliser here made hashing, not weight lookups, the cost of scoring.
-#[inline(always)]
-pub(crate) fn mix(a: u64, b: u64) -> u64 {
-    (a.rotate_left(26) ^ b).wrapping_mul(0x9E37_79B9_7F4A_7C15)
-}
-
-/// A full 64-bit finaliser (SplitMix64), for pseudo-random numbers.
-#[inline(always)]
-pub(crate) fn scramble(a: u64, b: u64) -> u64 {
-    let mut z = a ^ b.wrapping_mul(0x9E37_79B9_7F4A_7C15);
-    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-    z ^ (z >> 31)
-}
-
-/// FNV-1a of a string (stable across runs and machines, unlike the std hasher).
-pub(crate) fn hash_str(text: &str) -> u64 {
-    fingerprint(text.as_bytes())
 }
 
 #[derive(Debug, Clone, Copy, Default)]
@@ -349,16 +327,6 @@ impl SentenceFeatures {
             emit(mix(114, mix(h.tag, m.case)));
         }
     }
-}
-
-/// A stable 64-bit fingerprint of bytes (FNV-1a), e.g. of the training data.
-pub fn fingerprint(bytes: &[u8]) -> u64 {
-    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
-    for &byte in bytes {
-        h ^= u64::from(byte);
-        h = h.wrapping_mul(0x0000_0100_0000_01b3);
-    }
-    h
 }
 
 #[cfg(test)]

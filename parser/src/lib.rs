@@ -9,6 +9,7 @@ pub mod decode;
 pub mod demo;
 pub mod eval;
 pub mod features;
+pub mod hashing;
 pub mod marginals;
 pub mod model;
 pub mod perceptron;

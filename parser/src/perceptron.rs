@@ -2,13 +2,7 @@
 //! lazy-averaging trick: alongside the weights `w` keep `u += c·Δ` for every update made at step
 //! `c`; after `C` steps the average of the weights over all steps is `w − u / C`.
 
-use crate::features::mix;
-
-/// Index of a feature hash in a table of `2^bits` entries (the top bits: the best mixed).
-#[inline(always)]
-pub fn bucket(hash: u64, bits: u32) -> usize {
-    (hash >> (64 - bits)) as usize
-}
+use crate::hashing::{bucket, mix};
 
 /// The class with the highest score `Σ_f weights[bucket(mix(f, class))]` over `features`, the
 /// first among equal scores (the tagger's and the labeler's decision). Prefetching every bucket

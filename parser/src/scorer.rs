@@ -8,7 +8,8 @@
 
 use crate::decode::ScoreMatrix;
 use crate::features::{FeatureConfig, SentenceFeatures, TokenView};
-use crate::perceptron::{best_class, bucket, prefetch};
+use crate::hashing::bucket;
+use crate::perceptron::{best_class, prefetch};
 
 /// What a scorer reads of one sentence: word forms, their tags and morphology summaries (empty
 /// when the model does not use morphology).
@@ -219,7 +220,7 @@ impl LinearScorer {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::features::hash_str;
+    use crate::hashing::hash_str;
 
     /// The pipelined scoring (buckets prefetched one arc ahead) must give bit-identical scores to
     /// the direct loop it replaced: same weights, added in the same order.

@@ -1,7 +1,7 @@
 //! Part-of-speech tagger: greedy left-to-right averaged perceptron (Collins 2002) over hashed
 //! features of the word, its affixes and shape, its neighbours and the two previous tags.
 
-use crate::features::{hash_str, mix};
+use crate::hashing::{hash_str, mix};
 use crate::perceptron::{Trainee, best_class};
 use crate::text;
 
@@ -136,7 +136,7 @@ impl Tagger {
         let mut order: Vec<usize> = (0..sentences.len()).collect();
         let mut features = Vec::with_capacity(32);
         for epoch in 0..epochs {
-            crate::train::shuffle(&mut order, seed ^ ((epoch as u64 + 1) * 0x51));
+            crate::hashing::shuffle(&mut order, seed ^ ((epoch as u64 + 1) * 0x51));
             for &s in &order {
                 let (forms, gold) = &sentences[s];
                 let (mut prev, mut prev2) = (START, START);

@@ -13,7 +13,8 @@
 
 use crate::conllu::Sentence;
 use crate::decode::{self, Algorithm, RootConstraint, is_projective};
-use crate::features::{FeatureConfig, mix};
+use crate::features::FeatureConfig;
+use crate::hashing::{bucket, mix};
 use crate::model::Model;
 use crate::perceptron::{self, Trainee, weight_table, weight_table_from};
 use crate::scorer::{ArcScorer, LinearScorer};
@@ -119,16 +120,6 @@ pub struct EpochReport {
     pub dev_uas: Option<f64>,
 }
 
-/// Fisher-Yates with SplitMix64: a reproducible shuffle.
-pub fn shuffle<T>(items: &mut [T], seed: u64) {
-    let mut state = seed;
-    for i in (1..items.len()).rev() {
-        state = state.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let j = (crate::features::scramble(state, 0) % (i as u64 + 1)) as usize;
-        items.swap(i, j);
-    }
-}
-
 fn sorted_unique(values: impl Iterator<Item = String>) -> Vec<String> {
     let mut v: Vec<String> = values.collect();
     v.sort();
@@ -226,7 +217,7 @@ pub fn train(
     let mut since_best = 0;
     let mut order: Vec<usize> = (0..train.len()).collect();
     for epoch in 1..=options.epochs {
-        shuffle(
+        crate::hashing::shuffle(
             &mut order,
             options
                 .seed
@@ -445,10 +436,10 @@ fn train_shard(
                 for &m in &wrong {
                     margin += scores.get(example.heads[m], m) - scores.get(predicted[m], m);
                     features.arc_features(example.heads[m], m, |h| {
-                        *delta.entry(perceptron::bucket(h, bits)).or_default() += 1.0
+                        *delta.entry(bucket(h, bits)).or_default() += 1.0
                     });
                     features.arc_features(predicted[m], m, |h| {
-                        *delta.entry(perceptron::bucket(h, bits)).or_default() -= 1.0
+                        *delta.entry(bucket(h, bits)).or_default() -= 1.0
                     });
                 }
                 let norm: f32 = delta.values().map(|d| d * d).sum();

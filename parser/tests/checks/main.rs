@@ -5,6 +5,7 @@ mod brute_force;
 mod conllu_errors;
 mod counting;
 mod properties;
+mod reproducibility;
 mod stability;
 
 use arcwright_parser::decode::ScoreMatrix;

@@ -11,7 +11,7 @@ use crate::cli;
 fn examples(path: &std::path::Path) -> Result<(Vec<Example>, u64), Failure> {
     let bytes = std::fs::read(path)
         .map_err(|e| Failure::runtime(format!("{}: cannot read: {e}", path.display())))?;
-    let fingerprint = arcwright_parser::features::fingerprint(&bytes);
+    let fingerprint = arcwright_parser::hashing::fingerprint(&bytes);
     let document = read_treebank(path)?;
     let examples: Vec<Example> = document
         .sentences

@@ -1,0 +1,147 @@
+"""The service parses exactly as the library does: for every sentence of a CoNLL-U file, the
+reply of `arcwright serve` (tags, heads, labels, confidences) equals, bit for bit, what
+`arcwright parse --confidence` writes for the same model, with each decoder, over HTTP/JSON and
+over gRPC (Python stubs generated from proto/).
+
+Both sides get the word forms only (the service as `tokens`), so both tag, score, decode, label
+and compute confidences themselves. Confidences are compared as IEEE doubles: the CLI prints the
+shortest decimal that reads back as the same f64 and serde_json does the same, so equal strings
+are not needed, equal floats are. A word left without a confidence (its Matrix-Tree column could
+not be computed within the effort bound) must be left out on both sides.
+
+Usage: check_pipeline_identity.py BINARY MODEL_DIR GOLD_CONLLU WORK_DIR
+"""
+
+import json
+import os
+import shutil
+import socket
+import subprocess
+import sys
+import time
+import urllib.request
+
+import conllu  # PyPI `conllu`: an outside reader for the CLI's output
+import grpc
+from grpc_tools import protoc
+
+ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+BATCH = 32
+
+
+def free_port():
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def generate_stubs(out):
+    os.makedirs(out, exist_ok=True)
+    code = protoc.main(["grpc_tools.protoc", f"-I{ROOT}/proto", f"--python_out={out}",
+                        f"--grpc_python_out={out}", f"{ROOT}/proto/arcwright/v1/parser.proto"])
+    if code != 0:
+        raise SystemExit("protoc failed")
+    for d in ("arcwright", "arcwright/v1"):
+        open(os.path.join(out, d, "__init__.py"), "a").close()
+    sys.path.insert(0, out)
+
+
+def library_parses(binary, model, gold_text, decoder):
+    """Sentences as lists of (tag, head, label, confidence or None) from `arcwright parse`."""
+    out = subprocess.run([binary, "parse", "--model", model, "--decoder", decoder, "--confidence"],
+                         input=gold_text.encode(), capture_output=True, check=True).stdout.decode()
+    sentences = []
+    for sentence in conllu.parse(out):
+        words = [t for t in sentence if isinstance(t["id"], int)]
+        sentences.append([(t["upos"], t["head"], t["deprel"],
+                           float(t["misc"]["ArcConfidence"]) if t["misc"] and "ArcConfidence" in t["misc"] else None)
+                          for t in words])
+    return sentences
+
+
+def main():
+    binary, model, gold, work = sys.argv[1:5]
+    shutil.rmtree(work, ignore_errors=True)
+    os.makedirs(work)
+    with open(gold, encoding="utf-8") as f:
+        gold_text = f.read()
+    forms = [[t["form"] for t in s if isinstance(t["id"], int)] for s in conllu.parse(gold_text)]
+    forms = [f for f in forms if f]
+    store = os.path.join(work, "store")
+    version = subprocess.run([binary, "store", "publish", "--store", store, "--name", "m", model],
+                             capture_output=True, text=True, check=True).stdout.strip()
+    subprocess.run([binary, "store", "promote", "--store", store, "--name", "m", "--version", version],
+                   capture_output=True, check=True)
+    generate_stubs(os.path.join(work, "stubs"))
+    from arcwright.v1 import parser_pb2, parser_pb2_grpc
+
+    http_port, grpc_port = free_port(), free_port()
+    log = open(os.path.join(work, "serve.log"), "w")
+    server = subprocess.Popen([binary, "serve", "--store", store, "--http", f"127.0.0.1:{http_port}",
+                               "--grpc", f"127.0.0.1:{grpc_port}", "--cache-dir", os.path.join(work, "cache"),
+                               "--max-tokens", "4096", "--max-sentences", str(BATCH),
+                               "--max-body-bytes", str(8 << 20), "--deadline-seconds", "120"],
+                              stdout=log, stderr=log)
+    failures = []
+    try:
+        base = f"http://127.0.0.1:{http_port}"
+        for _ in range(300):
+            try:
+                with urllib.request.urlopen(base + "/readyz", timeout=2) as r:
+                    if r.status == 200:
+                        break
+            except OSError:
+                time.sleep(0.1)
+        else:
+            raise SystemExit("the service did not become ready (see serve.log)")
+        channel = grpc.insecure_channel(f"127.0.0.1:{grpc_port}",
+                                        options=[("grpc.max_receive_message_length", 64 << 20)])
+        stub = parser_pb2_grpc.ParserStub(channel)
+        grpc_decoders = {"projective": parser_pb2.DECODER_PROJECTIVE,
+                         "non-projective": parser_pb2.DECODER_NON_PROJECTIVE}
+        for decoder in ("projective", "non-projective"):
+            expected = library_parses(binary, model, gold_text, decoder)
+            if len(expected) != len(forms):
+                failures.append(f"{decoder}: the CLI wrote {len(expected)} sentences for {len(forms)}")
+                continue
+            http_got, grpc_got = [], []
+            for start in range(0, len(forms), BATCH):
+                chunk = forms[start:start + BATCH]
+                body = {"model": "m", "decoder": decoder, "confidence": True,
+                        "sentences": [{"tokens": f} for f in chunk]}
+                request = urllib.request.Request(base + "/v1/parse/batch", data=json.dumps(body).encode(),
+                                                 headers={"content-type": "application/json"})
+                with urllib.request.urlopen(request, timeout=120) as r:
+                    reply = json.loads(r.read())
+                for result in reply["results"]:
+                    (sentence,) = result["sentences"]
+                    http_got.append([(t["tag"], t["head"], t["label"], t.get("confidence"))
+                                     for t in sentence["tokens"]])
+                reply = stub.ParseBatch(parser_pb2.ParseBatchRequest(
+                    model="m", decoder=grpc_decoders[decoder], confidence=True,
+                    sentences=[parser_pb2.SentenceInput(tokens=parser_pb2.TokenList(tokens=f)) for f in chunk]),
+                    timeout=120)
+                for result in reply.results:
+                    (sentence,) = result.sentences
+                    grpc_got.append([(t.tag, t.head, t.label, t.confidence if t.HasField("confidence") else None)
+                                     for t in sentence.tokens])
+            for api, got in (("HTTP", http_got), ("gRPC", grpc_got)):
+                differing = [i for i, (a, b) in enumerate(zip(expected, got)) if a != b]
+                if len(got) != len(expected) or differing:
+                    first = differing[0] if differing else None
+                    detail = "" if first is None else f"; first at sentence {first}: library {expected[first][:3]} service {got[first][:3]}"
+                    failures.append(f"{decoder} over {api}: {len(differing)} of {len(expected)} sentences differ{detail}")
+            tokens = sum(len(s) for s in expected)
+            missing = sum(1 for s in expected for t in s if t[3] is None)
+            print(f"{decoder}: {len(expected)} sentences, {tokens} tokens identical over HTTP and gRPC "
+                  f"unless listed below ({missing} words without a confidence on both sides)")
+    finally:
+        server.terminate()
+        server.wait(timeout=30)
+    for failure in failures:
+        print("FAIL", failure, file=sys.stderr)
+    sys.exit(1 if failures else 0)
+
+
+if __name__ == "__main__":
+    main()
