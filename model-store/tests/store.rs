@@ -1,5 +1,5 @@
 //! The store on the local backend: round trip, faults, aliases, concurrency, names, change feed.
-//! (The S3-compatible backend runs the same operations in `tests/reference/check_store_s3.py`
+//! (The S3-compatible backend runs the same operations in `tests/e2e/check_store_s3.py`
 //! against a real S3 server on 127.0.0.1.)
 
 use std::path::Path;

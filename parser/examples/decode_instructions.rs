@@ -7,7 +7,7 @@
 //! with DECODER `eisner` (the fast projective decoder), `reference-eisner` (the textbook
 //! O(n³) loops of `decode::reference`) or `chu-liu-edmonds`. The per-decode count is the
 //! difference of two runs' totals divided by the difference of their REPEATS (setup cancels).
-//! `tests/reference/measure_decode_instructions.sh` does this for 16 … 256 words and fits the
+//! `tools/measure/measure_decode_instructions.sh` does this for 16 … 256 words and fits the
 //! log-log slope.
 
 use arcwright_parser::decode::{RootConstraint, ScoreMatrix, chu_liu_edmonds, eisner, reference};

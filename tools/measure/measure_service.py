@@ -13,7 +13,7 @@ import sys
 import threading
 import time
 
-sys.path.insert(0, os.path.dirname(__file__))
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "..", "tests", "e2e"))
 import check_service as cs  # noqa: E402
 
 

@@ -115,7 +115,7 @@ scrape_configs:
         non_projective = exponents.get("non-projective", float("nan"))
         # Issue 6 asks for [2.6, 3.4]. Our Eisner's quadratic work weighs as much as its
         # vectorized cubic loop up to about 100 tokens: counted in instructions, with no cache
-        # effects, its slope over 16-256 is 2.46 (tests/reference/measure_decode_instructions.sh),
+        # effects, its slope over 16-256 is 2.46 (tools/measure/measure_decode_instructions.sh),
         # and cold caches in the service bring it to about 2.1 (README, Telemetry). The band
         # checked here is the alert band of deploy/prometheus/rules/alerts.yml; the gap is
         # reported, not hidden.

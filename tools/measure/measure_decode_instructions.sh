@@ -2,7 +2,7 @@
 # Instructions per decode (valgrind/callgrind: deterministic, unlike time on a shared machine)
 # at 16, 32, 64, 128 and 256 words, and the least-squares slope of ln(instructions) on ln(words)
 # over those sizes — the exponent a log-uniform 16–256 mix would show with no cache effects.
-# Usage: tests/reference/measure_decode_instructions.sh [eisner reference-eisner chu-liu-edmonds]
+# Usage: tools/measure/measure_decode_instructions.sh [eisner reference-eisner chu-liu-edmonds]
 set -euo pipefail
 cd "$(dirname "$0")/../.."
 command -v valgrind >/dev/null || { echo "needs valgrind (Debian package valgrind)" >&2; exit 2; }
