@@ -27,7 +27,7 @@ mkdir -p "$CACHE"
 PYTHON_PACKAGES=("networkx==3.6.1" "conllu==6.0.0" "moto[server]==5.2.1"
     "grpcio-tools==1.76.0" "grpcio-reflection==1.76.0" "grpcio-health-checking==1.76.0"
     "schemathesis==4.32.5" "kubernetes-validate==1.37.0" "PyYAML==6.0.3")
-MACHETE_VERSION=0.9.1
+MACHETE_VERSION=0.9.2
 
 install=1
 selected=()

@@ -5,9 +5,7 @@ use std::time::Duration;
 
 use anyhow::anyhow;
 
-pub mod proto {
-    tonic::include_proto!("arcwright.v1");
-}
+pub use arcwright_proto as proto;
 
 use proto::parser_client::ParserClient;
 

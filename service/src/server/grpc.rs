@@ -15,11 +15,7 @@ use arcwright_parser::decode::Algorithm;
 use super::errors::{ApiError, ErrorCode};
 use super::request::{ParseJob, ParseOutcome, SentenceInput, TokenOut};
 
-pub mod proto {
-    tonic::include_proto!("arcwright.v1");
-    pub const DESCRIPTOR: &[u8] =
-        include_bytes!(concat!(env!("OUT_DIR"), "/arcwright_descriptor.bin"));
-}
+pub use arcwright_proto as proto;
 
 use proto::model_admin_server::ModelAdmin;
 use proto::parser_server::Parser;

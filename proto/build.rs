@@ -1,15 +1,13 @@
-//! Compiles `proto/arcwright/v1/*.proto` with protox (a pure-Rust protobuf compiler, so no system
+//! Compiles `arcwright/v1/*.proto` with protox (a pure-Rust protobuf compiler, so no system
 //! `protoc` is needed) and generates the tonic server and client code. The encoded descriptor set
-//! is kept for gRPC server reflection.
+//! is kept for gRPC server reflection. The one place Rust code is generated from the API.
 
 use std::path::PathBuf;
 
 use prost::Message;
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
-    let root = PathBuf::from(std::env::var("CARGO_MANIFEST_DIR")?)
-        .join("..")
-        .join("proto");
+    let root = PathBuf::from(std::env::var("CARGO_MANIFEST_DIR")?);
     let file = root.join("arcwright/v1/parser.proto");
     println!("cargo:rerun-if-changed={}", file.display());
     let descriptors = protox::compile([&file], [&root])?;
