@@ -146,6 +146,24 @@ pub fn markdown(s: &Suite) -> String {
         out,
         "Open-loop load (latency from each request's scheduled send time). Generator and server share the machine.\n"
     );
+    steady_rate(&mut out, s);
+    latency_by_length(&mut out, s);
+    scaling_exponents(&mut out, s);
+    step_up(&mut out, s);
+    capacity(&mut out, s);
+    half_knee_target(&mut out, s);
+    batch_throughput_target(&mut out, s);
+    swap_target(&mut out, s);
+    hot_swap(&mut out, s);
+    shedding(&mut out, s);
+    soak(&mut out, s);
+    memory(&mut out, s);
+    accounting(&mut out, s);
+    out
+}
+
+/// Steady rate by API.
+fn steady_rate(out: &mut String, s: &Suite) {
     let _ = writeln!(
         out,
         "## Steady rate by API\n\n| API | offered req/s | sent | ok | shed | errors | sentences/s | p50 ms | p99 ms |\n| --- | --- | --- | --- | --- | --- | --- | --- | --- |"
@@ -164,6 +182,10 @@ pub fn markdown(s: &Suite) -> String {
             fmt(r.latency.p99_ms)
         );
     }
+}
+
+/// Latency by sentence length, both decoders.
+fn latency_by_length(out: &mut String, s: &Suite) {
     let _ = writeln!(
         out,
         "\n## Latency by sentence length (gRPC Parse, low rate)\n\n| words | projective p50 ms | p99 ms | non-projective + confidences p50 ms | p99 ms | errors |\n| --- | --- | --- | --- | --- | --- |"
@@ -181,6 +203,10 @@ pub fn markdown(s: &Suite) -> String {
             r.errors + other.map_or(0, |o| o.errors)
         );
     }
+}
+
+/// The server's own exponent fits from `/v1/scaling`.
+fn scaling_exponents(out: &mut String, s: &Suite) {
     if let Some(fits) = s.scaling.get("fits").and_then(|f| f.as_array()) {
         let _ = writeln!(
             out,
@@ -198,6 +224,10 @@ pub fn markdown(s: &Suite) -> String {
             );
         }
     }
+}
+
+/// Step-up ladders and the knee.
+fn step_up(out: &mut String, s: &Suite) {
     let _ = writeln!(
         out,
         "\n## Step-up (gRPC Parse, 25 words)\n\n| offered req/s | achieved req/s | shed | errors | skipped (client) | p50 ms | p99 ms |\n| --- | --- | --- | --- | --- | --- | --- |"
@@ -252,6 +282,10 @@ pub fn markdown(s: &Suite) -> String {
             knees.join(", ")
         );
     }
+}
+
+/// Closed-loop capacity rounds.
+fn capacity(out: &mut String, s: &Suite) {
     if !s.capacity.is_empty() {
         let _ = writeln!(
             out,
@@ -294,8 +328,11 @@ pub fn markdown(s: &Suite) -> String {
             );
         }
     }
+}
 
-    let _ = writeln!(out, "\n## Targets (issue 7)\n");
+/// The latency target at half the knee, with where the time goes.
+fn half_knee_target(out: &mut String, s: &Suite) {
+    let _ = writeln!(out, "\n## Targets\n");
     match (&s.half_knee, s.knee_rate) {
         (Some(r), Some(knee)) => {
             let ratio = |r: &RunResult| r.latency.p99_ms / r.latency.p50_ms.max(1e-9);
@@ -391,6 +428,10 @@ pub fn markdown(s: &Suite) -> String {
             let _ = writeln!(out, "- p99 at half the knee: no knee found");
         }
     }
+}
+
+/// The batch-throughput target against the in-process rate.
+fn batch_throughput_target(out: &mut String, s: &Suite) {
     let rounds = batch_rounds(s);
     let ratios: Vec<f64> = rounds
         .iter()
@@ -442,6 +483,10 @@ pub fn markdown(s: &Suite) -> String {
             );
         }
     }
+}
+
+/// The zero-errors-across-swaps target.
+fn swap_target(out: &mut String, s: &Suite) {
     if let Some(r) = &s.swap {
         let _ = writeln!(
             out,
@@ -450,6 +495,10 @@ pub fn markdown(s: &Suite) -> String {
             r.errors
         );
     }
+}
+
+/// Hot swap under load.
+fn hot_swap(out: &mut String, s: &Suite) {
     if let Some(r) = &s.swap {
         let _ = writeln!(
             out,
@@ -462,6 +511,10 @@ pub fn markdown(s: &Suite) -> String {
             r.versions.len()
         );
     }
+}
+
+/// Shedding at twice the knee.
+fn shedding(out: &mut String, s: &Suite) {
     if let Some(r) = &s.shed {
         let _ = writeln!(
             out,
@@ -474,6 +527,10 @@ pub fn markdown(s: &Suite) -> String {
             fmt(r.latency.p99_ms)
         );
     }
+}
+
+/// The bounded soak.
+fn soak(out: &mut String, s: &Suite) {
     if let Some(r) = &s.soak {
         let _ = writeln!(
             out,
@@ -485,6 +542,10 @@ pub fn markdown(s: &Suite) -> String {
             fmt(r.latency.p99_ms)
         );
     }
+}
+
+/// Server resident memory.
+fn memory(out: &mut String, s: &Suite) {
     if !s.rss_kib.is_empty() {
         let _ = writeln!(
             out,
@@ -496,12 +557,15 @@ pub fn markdown(s: &Suite) -> String {
                 .join(", ")
         );
     }
+}
+
+/// Request accounting against the server's counters.
+fn accounting(out: &mut String, s: &Suite) {
     let _ = writeln!(
         out,
         "\n## Accounting\n\n```\n{}\n```\n\nPlots: `latency-by-length.svg`, `step-up.svg`.",
         serde_json::to_string_pretty(&s.accounting).unwrap_or_default()
     );
-    out
 }
 
 /// Latency against length on log-log axes (client p50 per fixed length, and server-side
