@@ -21,15 +21,22 @@
 //! `YYYYMMDDTHHMMSS.ffffffZ-xxxxxxxx` (UTC time of publishing to the microsecond, then 8 hex
 //! digits), so they sort by time and two concurrent publishes differ.
 
+mod aliases;
+mod backends;
+mod error;
+mod fetch;
 mod layout;
 mod manifest;
 mod names;
 mod objects;
 mod store;
+mod time;
 mod watch;
 
+pub use aliases::AliasRecord;
+pub use error::StoreError;
 pub use manifest::{ArtifactInfo, FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
 pub use names::{validate_name, validate_version};
 pub use objects::{ObjectUrl, join_url};
-pub use store::{AliasRecord, Store, StoreError, VersionSummary};
+pub use store::{Store, VersionSummary};
 pub use watch::{AliasFeed, AliasWatcher, Backoff, MAX_BACKOFF_FACTOR};

@@ -13,7 +13,8 @@ use object_store::local::LocalFileSystem;
 use object_store::path::Path;
 use object_store::{ObjectStore, PutPayload};
 
-use crate::store::{Location, StoreError, locate, s3_bucket};
+use crate::StoreError;
+use crate::backends::{Location, locate, s3_bucket};
 
 /// A backend and the object's key in it.
 type Backend<'a> = (Arc<dyn ObjectStore>, &'a Path);
