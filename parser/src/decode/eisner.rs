@@ -338,13 +338,13 @@ fn fill_narrow(charts: &mut Charts<'_>, scores: &ScoreMatrix, single_root: bool)
             let here = w * row + first;
 
             // Incomplete spans: max over k in 0..w of CR[s][s + k] + CL[s + k + 1][t].
+            // k = 0..w: cr at k·row + first, cl at (w − 1 − k)·row + first + k + 1.
             let inner = block_max(
-                0..w,
+                w,
                 cr,
-                |k| k * row + first,
+                Strided::up(first, row),
                 cl,
-                // = (w − 1 − k)·row + first + k + 1, written so that it is visibly linear in k.
-                |k| (w - 1) * row + first + 1 - k * (row - 1),
+                Strided::down((w - 1) * row + first + 1, row - 1),
             );
             *lanes_mut(ir, here) = lanes_add(&inner, lanes(right_arc, here));
             *lanes_mut(il, here) = lanes_add(&inner, lanes(left_arc, here));
@@ -355,22 +355,24 @@ fn fill_narrow(charts: &mut Charts<'_>, scores: &ScoreMatrix, single_root: bool)
             }
 
             // Complete right: max over k in 1..=w of IR[s][s + k] + CR[s + k][t].
+            // k = 1..=w: ir at k·row + first, cr at (w − k)·row + first + k.
             let right = block_max(
-                1..w + 1,
+                w,
                 ir,
-                |k| k * row + first,
+                Strided::up(row + first, row),
                 cr,
-                |k| (w - k) * row + first + k,
+                Strided::down((w - 1) * row + first + 1, row - 1),
             );
             *lanes_mut(cr, here) = right;
 
             // Complete left: max over k in 0..w of CL[s][s + k] + IL[s + k][t].
+            // k = 0..w: cl at k·row + first, il at (w − k)·row + first + k.
             let left = block_max(
-                0..w,
+                w,
                 cl,
-                |k| k * row + first,
+                Strided::up(first, row),
                 il,
-                |k| (w - k) * row + first + k,
+                Strided::down(w * row + first, row - 1),
             );
             *lanes_mut(cl, here) = left;
 
@@ -434,35 +436,75 @@ fn lanes_add(a: &[f64; LANES], b: &[f64; LANES]) -> [f64; LANES] {
     std::array::from_fn(|lane| a[lane] + b[lane])
 }
 
-/// `acc[lane] = max over k in ks of a[a_at(k) + lane] + b[b_at(k) + lane]` for one block of
-/// starts (−∞ for an empty range). `a_at` and `b_at` must be linear in `k` (rows of a table, up
-/// or down), so that checking the range's two ends bounds every read.
+/// Positions `start, start ± step, start ± 2·step, …` in a table: one operand of a block
+/// reduction. Linear by construction, so the positions of a walk's first and last terms bound
+/// every position in between.
+#[derive(Clone, Copy)]
+struct Strided {
+    start: usize,
+    step: isize,
+}
+
+impl Strided {
+    /// `start, start + step, …`
+    #[inline(always)]
+    fn up(start: usize, step: usize) -> Strided {
+        Strided {
+            start,
+            step: step as isize,
+        }
+    }
+
+    /// `start, start − step, …`
+    #[inline(always)]
+    fn down(start: usize, step: usize) -> Strided {
+        Strided {
+            start,
+            step: -(step as isize),
+        }
+    }
+
+    /// The position of term `i`, or `None` if it would be negative.
+    #[inline(always)]
+    fn at(self, i: usize) -> Option<usize> {
+        usize::try_from(self.start as isize + self.step * i as isize).ok()
+    }
+
+    /// Whether terms `0..terms` each have [`LANES`] cells in a table of `len` cells.
+    #[inline(always)]
+    fn fits(self, terms: usize, len: usize) -> bool {
+        match (self.at(0), self.at(terms - 1)) {
+            (Some(first), Some(last)) => first.max(last) + LANES <= len,
+            _ => false,
+        }
+    }
+}
+
+/// `acc[lane] = max over i in 0..terms of a[a_walk(i) + lane] + b[b_walk(i) + lane]` for one
+/// block of starts (−∞ when `terms` is 0).
 #[inline(always)]
-fn block_max(
-    ks: std::ops::Range<usize>,
-    a: &[f64],
-    a_at: impl Fn(usize) -> usize,
-    b: &[f64],
-    b_at: impl Fn(usize) -> usize,
-) -> [f64; LANES] {
+fn block_max(terms: usize, a: &[f64], a_walk: Strided, b: &[f64], b_walk: Strided) -> [f64; LANES] {
     let mut acc = [f64::NEG_INFINITY; LANES];
-    let Some(last) = ks.end.checked_sub(1).filter(|&last| last >= ks.start) else {
+    if terms == 0 {
         return acc;
-    };
+    }
     // One check per block instead of two per term: a per-term check costs as much as the term.
-    assert!(a_at(ks.start).max(a_at(last)) + LANES <= a.len());
-    assert!(b_at(ks.start).max(b_at(last)) + LANES <= b.len());
-    for i in 0..ks.len() {
-        let (a_first, b_first) = (a_at(ks.start + i), b_at(ks.start + i));
+    assert!(a_walk.fits(terms, a.len()) && b_walk.fits(terms, b.len()));
+    let (mut a_first, mut b_first) = (a_walk.start as isize, b_walk.start as isize);
+    for _ in 0..terms {
         for lane in 0..LANES {
-            // SAFETY: a_at and b_at are linear in k, so a_at(k) and b_at(k) lie between their
-            // values at the range's two ends, which the asserts above bound by len − LANES.
+            // SAFETY: a walk is linear, so term i's position lies between those of terms 0 and
+            // terms − 1, which `fits` bounds to 0..=len − LANES for both tables.
             #[allow(unsafe_code)] // bounds checked per block above
-            let sum = unsafe { a.get_unchecked(a_first + lane) + b.get_unchecked(b_first + lane) };
+            let sum = unsafe {
+                a.get_unchecked(a_first as usize + lane) + b.get_unchecked(b_first as usize + lane)
+            };
             // `if >` rather than f64::max: inputs are finite or −∞ (no NaN), and this form maps
             // onto a single vector max instruction.
             acc[lane] = if sum > acc[lane] { sum } else { acc[lane] };
         }
+        a_first += a_walk.step;
+        b_first += b_walk.step;
     }
     acc
 }
@@ -582,5 +624,32 @@ fn best_split(span: Span, single_root: bool, value: impl Fn(Chart, usize, usize)
                 })
             }
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The block reduction's one bounds check covers every term: a walk that would leave the
+    /// table at either end, or go below 0, is refused before any unchecked read.
+    #[test]
+    fn strided_walks_are_bounded_by_their_two_ends() {
+        let table = vec![0.0; 10 * LANES];
+        assert!(Strided::up(0, LANES).fits(10, table.len()));
+        assert!(!Strided::up(0, LANES).fits(11, table.len()));
+        assert!(Strided::down(9 * LANES, LANES).fits(10, table.len()));
+        assert!(!Strided::down(9 * LANES, LANES).fits(11, table.len()), "below 0");
+        assert_eq!(Strided::down(5, 2).at(2), Some(1));
+        assert_eq!(Strided::down(5, 2).at(3), None);
+        let values: Vec<f64> = (0..table.len()).map(|i| i as f64).collect();
+        let zeros = vec![0.0; values.len()];
+        // Terms at 0, LANES, 2·LANES: the maximum is the last, lane by lane.
+        let best = block_max(3, &values, Strided::up(0, LANES), &zeros, Strided::up(0, 0));
+        assert_eq!(best, std::array::from_fn(|lane| (2 * LANES + lane) as f64));
+        assert_eq!(
+            block_max(0, &values, Strided::up(0, LANES), &zeros, Strided::up(0, 0)),
+            [f64::NEG_INFINITY; LANES]
+        );
     }
 }
