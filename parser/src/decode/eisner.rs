@@ -639,7 +639,10 @@ mod tests {
         assert!(Strided::up(0, LANES).fits(10, table.len()));
         assert!(!Strided::up(0, LANES).fits(11, table.len()));
         assert!(Strided::down(9 * LANES, LANES).fits(10, table.len()));
-        assert!(!Strided::down(9 * LANES, LANES).fits(11, table.len()), "below 0");
+        assert!(
+            !Strided::down(9 * LANES, LANES).fits(11, table.len()),
+            "below 0"
+        );
         assert_eq!(Strided::down(5, 2).at(2), Some(1));
         assert_eq!(Strided::down(5, 2).at(3), None);
         let values: Vec<f64> = (0..table.len()).map(|i| i as f64).collect();

@@ -227,11 +227,30 @@ impl std::fmt::Display for ApiError {
     }
 }
 
+/// The body of every HTTP error reply.
+#[derive(Debug, serde::Serialize, utoipa::ToSchema)]
+pub struct ErrorResponse {
+    error: ErrorDetail,
+}
+
+#[derive(Debug, serde::Serialize, utoipa::ToSchema)]
+pub struct ErrorDetail {
+    /// Machine-readable, stable (snake_case).
+    code: &'static str,
+    /// For people.
+    message: String,
+}
+
 impl IntoResponse for ApiError {
     fn into_response(self) -> Response {
-        let body =
-            serde_json::json!({"error": {"code": self.code.as_str(), "message": self.message}});
-        (self.http_status(), axum::Json(body)).into_response()
+        let status = self.http_status();
+        let body = ErrorResponse {
+            error: ErrorDetail {
+                code: self.code.as_str(),
+                message: self.message,
+            },
+        };
+        (status, axum::Json(body)).into_response()
     }
 }
 

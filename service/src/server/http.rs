@@ -10,49 +10,141 @@ use axum::middleware::{self, Next};
 use axum::response::{IntoResponse, Response};
 use axum::routing::{get, post};
 use axum::{Json, Router};
-use serde::Deserialize;
+use serde::{Deserialize, Serialize};
+use utoipa::ToSchema;
 
 use super::AppState;
 use subtle::ConstantTimeEq;
 
-use super::errors::{ApiError, ErrorCode};
+use super::errors::{ApiError, ErrorCode, ErrorResponse};
 use super::metrics;
 use super::request::{ParseJob, ParseOutcome, SentenceInput, TokenOut, decoder_from_name};
 
-#[derive(Deserialize)]
+// Request and reply bodies. The OpenAPI document (`openapi.rs`) is derived from these types and
+// the handlers' annotations, so it cannot drift from what the server reads and writes.
+
+/// The decoders a request may name (absent: the model's default).
+#[derive(Debug, ToSchema)]
+#[schema(rename_all = "kebab-case")]
+#[allow(dead_code)] // documents the accepted strings; requests carry them as text
+pub enum DecoderName {
+    Projective,
+    NonProjective,
+}
+
+/// `POST /v1/parse`: exactly one of `text` (one or more sentences) or `tokens` (one sentence).
+#[derive(Debug, Deserialize, ToSchema)]
 #[serde(deny_unknown_fields)]
-struct ParseBody {
+#[schema(as = ParseRequest)]
+pub struct ParseBody {
+    /// Model name (default: the service's default model).
     model: Option<String>,
+    #[schema(value_type = Option<DecoderName>)]
     decoder: Option<String>,
+    #[schema(min_length = 1)]
     text: Option<String>,
+    #[schema(min_items = 1)]
     tokens: Option<Vec<String>>,
+    /// One part-of-speech tag per token (only with `tokens`); skips the tagger.
+    #[schema(min_items = 1)]
     tags: Option<Vec<String>>,
+    /// Also return each arc's marginal probability.
     #[serde(default)]
     confidence: bool,
 }
 
-#[derive(Deserialize)]
+/// One input of a batch: `text` or `tokens` (with optional `tags`).
+#[derive(Debug, Deserialize, ToSchema)]
 #[serde(deny_unknown_fields)]
-struct SentenceBody {
+#[schema(as = SentenceInput)]
+pub struct SentenceBody {
+    #[schema(min_length = 1)]
     text: Option<String>,
+    #[schema(min_items = 1)]
     tokens: Option<Vec<String>>,
+    #[schema(min_items = 1)]
     tags: Option<Vec<String>>,
 }
 
-#[derive(Deserialize)]
+/// `POST /v1/parse/batch`.
+#[derive(Debug, Deserialize, ToSchema)]
 #[serde(deny_unknown_fields)]
-struct BatchBody {
+#[schema(as = BatchRequest)]
+pub struct BatchBody {
     model: Option<String>,
+    #[schema(value_type = Option<DecoderName>)]
     decoder: Option<String>,
     #[serde(default)]
     confidence: bool,
+    #[schema(min_items = 1)]
     sentences: Vec<SentenceBody>,
 }
 
-#[derive(Deserialize)]
+/// `POST /v1/models/{name}/activate`.
+#[derive(Debug, Deserialize, ToSchema)]
 #[serde(deny_unknown_fields)]
-struct ActivateBody {
+#[schema(as = ActivateRequest)]
+pub struct ActivateBody {
     version: String,
+}
+
+/// The model version that made a reply.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct ModelRef {
+    name: String,
+    version: String,
+}
+
+/// One parsed sentence.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct Sentence {
+    tokens: Vec<TokenOut>,
+}
+
+#[derive(Debug, Serialize, ToSchema)]
+pub struct ParseResponse {
+    model: ModelRef,
+    sentences: Vec<Sentence>,
+}
+
+/// The sentences of one batch input, in order.
+#[derive(Debug, Serialize, ToSchema)]
+pub struct BatchResult {
+    sentences: Vec<Sentence>,
+}
+
+#[derive(Debug, Serialize, ToSchema)]
+pub struct BatchResponse {
+    model: ModelRef,
+    /// One result per input, in input order.
+    results: Vec<BatchResult>,
+}
+
+#[derive(Debug, Serialize, ToSchema)]
+pub struct ActivateResponse {
+    model: ModelRef,
+    previous_version: Option<String>,
+}
+
+/// `GET /v1/models` (each model's versions, aliases, serving version and swap history).
+#[derive(Debug, ToSchema)]
+#[allow(dead_code)] // the reply is assembled as JSON in `models_status`; this documents it
+pub struct ModelsResponse {
+    models: Vec<serde_json::Value>,
+}
+
+fn sentences(results: Vec<Vec<TokenOut>>) -> Vec<Sentence> {
+    results
+        .into_iter()
+        .map(|tokens| Sentence { tokens })
+        .collect()
+}
+
+fn model_ref(outcome: &ParseOutcome) -> ModelRef {
+    ModelRef {
+        name: outcome.model_name.clone(),
+        version: outcome.model_version.clone(),
+    }
 }
 
 /// The router; tests call it without a socket.
@@ -63,29 +155,11 @@ pub fn router(state: Arc<AppState>) -> Router {
         .route("/v1/models", get(models))
         .route("/v1/models/{name}/activate", post(activate))
         .route("/v1/openapi.json", get(openapi))
-        .route(
-            "/v1/scaling",
-            get(|| async {
-                Json(
-                    super::scaling::TRACKER
-                        .lock()
-                        .map(|t| t.report())
-                        .unwrap_or_default(),
-                )
-            }),
-        )
+        .route("/v1/scaling", get(scaling))
         .merge(super::ui::routes())
-        .route("/healthz", get(|| async { "ok" }))
+        .route("/healthz", get(healthz))
         .route("/readyz", get(ready))
-        .route(
-            "/metrics",
-            get(|| async {
-                (
-                    [("content-type", "text/plain; version=0.0.4")],
-                    metrics::render(),
-                )
-            }),
-        )
+        .route("/metrics", get(prometheus_metrics))
         .fallback(|| async {
             ApiError::new(ErrorCode::NoRoute, "no such route; see /v1/openapi.json")
         })
@@ -148,20 +222,19 @@ fn decode_json<T: for<'de> Deserialize<'de>>(
     })
 }
 
-fn sentences_json(sentences: Vec<Vec<TokenOut>>) -> serde_json::Value {
-    serde_json::Value::Array(
-        sentences
-            .into_iter()
-            .map(|tokens| serde_json::json!({ "tokens": tokens }))
-            .collect(),
-    )
-}
-
-fn model_json(outcome: &ParseOutcome) -> serde_json::Value {
-    serde_json::json!({"name": outcome.model_name, "version": outcome.model_version})
-}
-
-async fn parse(State(state): State<Arc<AppState>>, body: Bytes) -> Result<Response, ApiError> {
+#[utoipa::path(post, path = "/v1/parse", request_body = ParseBody,
+    summary = "Parse one text (one or more sentences) or one tokenized sentence",
+    responses((status = 200, description = "Parsed", body = ParseResponse),
+        (status = 400, description = "Bad input", body = ErrorResponse),
+        (status = 404, description = "Unknown model", body = ErrorResponse),
+        (status = 413, description = "Body over the limit", body = ErrorResponse),
+        (status = 429, description = "Too many requests in flight (load shedding)", body = ErrorResponse),
+        (status = 503, description = "No model loaded yet, or shutting down", body = ErrorResponse),
+        (status = 504, description = "Deadline exceeded", body = ErrorResponse)))]
+pub(super) async fn parse(
+    State(state): State<Arc<AppState>>,
+    body: Bytes,
+) -> Result<Json<ParseResponse>, ApiError> {
     let request: ParseBody = decode_json(&state, &body).inspect_err(|e| count("parse", e))?;
     let job = ParseJob {
         model: request.model,
@@ -178,17 +251,26 @@ async fn parse(State(state): State<Arc<AppState>>, body: Bytes) -> Result<Respon
         .engine
         .parse(job, state.engine.limits.deadline, "http", "parse")
         .await?;
-    let sentences = outcome.results.pop().unwrap_or_default();
-    Ok(Json(
-        serde_json::json!({"model": model_json(&outcome), "sentences": sentences_json(sentences)}),
-    )
-    .into_response())
+    let results = outcome.results.pop().unwrap_or_default();
+    Ok(Json(ParseResponse {
+        model: model_ref(&outcome),
+        sentences: sentences(results),
+    }))
 }
 
-async fn parse_batch(
+#[utoipa::path(post, path = "/v1/parse/batch", request_body = BatchBody,
+    summary = "Parse several inputs; results keep input order",
+    responses((status = 200, description = "Parsed, in input order", body = BatchResponse),
+        (status = 400, description = "Bad input", body = ErrorResponse),
+        (status = 404, description = "Unknown model", body = ErrorResponse),
+        (status = 413, description = "Body over the limit", body = ErrorResponse),
+        (status = 429, description = "Too many requests in flight (load shedding)", body = ErrorResponse),
+        (status = 503, description = "No model loaded yet, or shutting down", body = ErrorResponse),
+        (status = 504, description = "Deadline exceeded", body = ErrorResponse)))]
+pub(super) async fn parse_batch(
     State(state): State<Arc<AppState>>,
     body: Bytes,
-) -> Result<Response, ApiError> {
+) -> Result<Json<BatchResponse>, ApiError> {
     let request: BatchBody = decode_json(&state, &body).inspect_err(|e| count("parse_batch", e))?;
     let job = ParseJob {
         model: request.model,
@@ -209,13 +291,16 @@ async fn parse_batch(
         .engine
         .parse(job, state.engine.limits.deadline, "http", "parse_batch")
         .await?;
-    let model = model_json(&outcome);
-    let results: Vec<serde_json::Value> = outcome
-        .results
-        .into_iter()
-        .map(|sentences| serde_json::json!({"sentences": sentences_json(sentences)}))
-        .collect();
-    Ok(Json(serde_json::json!({"model": model, "results": results})).into_response())
+    Ok(Json(BatchResponse {
+        model: model_ref(&outcome),
+        results: outcome
+            .results
+            .into_iter()
+            .map(|results| BatchResult {
+                sentences: sentences(results),
+            })
+            .collect(),
+    }))
 }
 
 fn count(method: &str, error: &ApiError) {
@@ -224,7 +309,13 @@ fn count(method: &str, error: &ApiError) {
         .inc();
 }
 
-async fn models(State(state): State<Arc<AppState>>) -> Result<Json<serde_json::Value>, ApiError> {
+#[utoipa::path(get, path = "/v1/models",
+    summary = "Models, versions, aliases and the version being served",
+    responses((status = 200, description = "Models", body = ModelsResponse),
+        (status = 503, description = "Store unavailable", body = ErrorResponse)))]
+pub(super) async fn models(
+    State(state): State<Arc<AppState>>,
+) -> Result<Json<serde_json::Value>, ApiError> {
     Ok(Json(super::models_status(&state).await?))
 }
 
@@ -251,22 +342,40 @@ pub fn check_admin(state: &AppState, presented: Option<&str>) -> Result<(), ApiE
     }
 }
 
-async fn activate(
+#[utoipa::path(post, path = "/v1/models/{name}/activate", request_body = ActivateBody,
+    summary = "Point the store's live alias at a version and swap this replica (admin)",
+    params(("name" = String, Path, description = "Model name")),
+    security(("admin_token" = [])),
+    responses((status = 200, description = "Activated", body = ActivateResponse),
+        (status = 400, description = "Bad input", body = ErrorResponse),
+        (status = 401, description = "Missing or wrong admin token", body = ErrorResponse),
+        (status = 403, description = "Admin routes are off", body = ErrorResponse),
+        (status = 404, description = "Unknown version", body = ErrorResponse),
+        (status = 413, description = "Body over the limit", body = ErrorResponse),
+        (status = 500, description = "The alias moved but this replica could not load the version", body = ErrorResponse),
+        (status = 503, description = "Store unavailable", body = ErrorResponse)))]
+pub(super) async fn activate(
     State(state): State<Arc<AppState>>,
     Path(name): Path<String>,
     headers: HeaderMap,
     body: Bytes,
-) -> Result<Response, ApiError> {
+) -> Result<Json<ActivateResponse>, ApiError> {
     check_admin(
         &state,
         headers.get("authorization").and_then(|v| v.to_str().ok()),
     )?;
     let request: ActivateBody = decode_json(&state, &body)?;
     let (version, previous) = super::activate(&state, &name, &request.version).await?;
-    Ok(Json(serde_json::json!({"model": {"name": name, "version": version}, "previous_version": previous})).into_response())
+    Ok(Json(ActivateResponse {
+        model: ModelRef { name, version },
+        previous_version: previous,
+    }))
 }
 
-async fn ready(State(state): State<Arc<AppState>>) -> Response {
+#[utoipa::path(get, path = "/readyz", summary = "Readiness: a model is loaded",
+    responses((status = 200, description = "Ready", body = String, content_type = "text/plain"),
+        (status = 503, description = "Not ready", body = ErrorResponse)))]
+pub(super) async fn ready(State(state): State<Arc<AppState>>) -> Response {
     if state.engine.registry.is_ready()
         && !state.draining.load(std::sync::atomic::Ordering::Relaxed)
     {
@@ -276,6 +385,35 @@ async fn ready(State(state): State<Arc<AppState>>) -> Response {
     }
 }
 
-async fn openapi(State(state): State<Arc<AppState>>) -> Json<serde_json::Value> {
+#[utoipa::path(get, path = "/healthz", summary = "Liveness",
+    responses((status = 200, description = "Alive", body = String, content_type = "text/plain")))]
+pub(super) async fn healthz() -> &'static str {
+    "ok"
+}
+
+#[utoipa::path(get, path = "/metrics", summary = "Prometheus text exposition",
+    responses((status = 200, description = "Metrics", body = String, content_type = "text/plain")))]
+pub(super) async fn prometheus_metrics() -> impl IntoResponse {
+    (
+        [("content-type", "text/plain; version=0.0.4")],
+        metrics::render(),
+    )
+}
+
+#[utoipa::path(get, path = "/v1/scaling",
+    summary = "Latency against sentence length: exponent fits per decoder and stage, per-bucket quantiles",
+    responses((status = 200, description = "Fits and buckets", body = Object)))]
+pub(super) async fn scaling() -> Json<serde_json::Value> {
+    Json(
+        super::scaling::TRACKER
+            .lock()
+            .map(|t| t.report())
+            .unwrap_or_default(),
+    )
+}
+
+#[utoipa::path(get, path = "/v1/openapi.json", summary = "This document",
+    responses((status = 200, description = "OpenAPI document", body = Object)))]
+pub(super) async fn openapi(State(state): State<Arc<AppState>>) -> Json<serde_json::Value> {
     Json(super::openapi::document(&state.engine.limits))
 }

@@ -33,14 +33,22 @@ pub struct ParseJob {
     pub inputs: Vec<SentenceInput>,
 }
 
-#[derive(Debug, Clone, serde::Serialize)]
+/// One parsed word.
+#[derive(Debug, Clone, serde::Serialize, utoipa::ToSchema)]
+#[schema(as = Token)]
 pub struct TokenOut {
+    /// Position in the sentence, from 1.
+    #[schema(minimum = 1)]
     pub id: usize,
     pub form: String,
     pub tag: String,
+    /// The head word's id; 0 = the root.
     pub head: usize,
     pub label: String,
+    /// P(head → word) under the model's tree distribution, when asked for (left out for a word
+    /// whose marginals could not be computed accurately within the effort bound).
     #[serde(skip_serializing_if = "Option::is_none")]
+    #[schema(minimum = 0.0, maximum = 1.0)]
     pub confidence: Option<f64>,
 }
 
