@@ -37,6 +37,36 @@ pub enum Command {
     /// Ask a running service whether it is serving (grpc.health.v1); exit 0 if so, 1 if not.
     /// For container health checks, where the runtime image has no other client.
     Health(HealthOptions),
+    /// Parse text with a running service over gRPC (the client generated from proto/); prints
+    /// CoNLL-U, or the reply as JSON with --json.
+    Query(QueryOptions),
+}
+
+#[derive(Debug, Args)]
+#[command(
+    after_help = "Example:\n  arcwright query --grpc 127.0.0.1:50051 --confidence \"The pilot signed the manifest.\""
+)]
+pub struct QueryOptions {
+    /// The text to parse (one or more sentences); read from stdin when absent.
+    pub text: Option<String>,
+    /// The service's gRPC address.
+    #[arg(long, env = "ARCWRIGHT_GRPC", default_value = "127.0.0.1:50051")]
+    pub grpc: String,
+    /// Model name (default: the service's default model).
+    #[arg(long)]
+    pub model: Option<String>,
+    /// Decoder (default: the model's own).
+    #[arg(long, value_enum)]
+    pub decoder: Option<AlgorithmArg>,
+    /// Ask for each arc's marginal probability (written to MISC as ArcConfidence=P).
+    #[arg(long)]
+    pub confidence: bool,
+    /// Print the reply as JSON instead of CoNLL-U.
+    #[arg(long)]
+    pub json: bool,
+    /// Give up after this many seconds.
+    #[arg(long, default_value_t = 10.0)]
+    pub timeout: f64,
 }
 
 #[derive(Debug, Args)]

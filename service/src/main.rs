@@ -8,7 +8,7 @@ use std::process::ExitCode;
 
 /// mimalloc rather than the system allocator: a parse allocates a few hundred small strings and
 /// vectors on a parsing thread that the network threads free, and the system allocator's
-/// cross-thread frees were the largest cost outside parsing (see DEVELOPERS.md, Performance).
+/// cross-thread frees were the largest cost outside parsing (docs/decisions/allocator-and-huge-pages.md).
 #[global_allocator]
 static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
 
@@ -27,6 +27,7 @@ fn main() -> ExitCode {
         cli::Command::DemoData(options) => commands::demo::run(&options),
         cli::Command::Store(options) => commands::store::run(&options),
         cli::Command::Health(options) => commands::health::run(&options),
+        cli::Command::Query(options) => commands::query::run(&options),
         cli::Command::Serve(mut options) => match matches.subcommand_matches("serve") {
             Some(serve_matches) => match options.apply_config_file(serve_matches) {
                 Ok(()) => serve(&options),

@@ -1,5 +1,5 @@
-//! The service built in-process (no sockets): every bad input of issue 5's table gets a 4xx with
-//! a message naming the problem, and the service keeps answering; plus a gRPC round trip on a
+//! The service built in-process (no sockets): every kind of bad input gets a 4xx with a message
+//! naming the problem, and the service keeps answering; plus a gRPC round trip on a
 //! real port 0 with the client generated from `proto/`.
 
 use std::sync::Arc;

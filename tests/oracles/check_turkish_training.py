@@ -3,7 +3,7 @@
 Split: `arcwright conllu split` over web.conllu then wiki.conllu, sentence index mod 10
 (0 → test, 1 → dev, else train). Trains with the projective and with the non-projective decoder,
 evaluates each with both decoders on the test split, and checks:
-- UAS/LAS floors with predicted tags (measured values minus about 2 points; see README);
+- UAS/LAS floors with predicted tags (measured values minus about 2 points; docs/performance.md);
 - a model trained and decoding non-projectively recovers some gold crossing arcs (> 0), and a
   projective decoder recovers none (by construction);
 - the same seed and thread count give byte-identical model files.

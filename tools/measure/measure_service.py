@@ -1,4 +1,4 @@
-"""Measurements for the README (not a test): latency of Parse for 25-token sentences at low
+"""Measurements for docs/performance.md (not a test): latency of Parse for 25-token sentences at low
 load, ParseBatch throughput (32 sentences) against in-process parsing of the same sentences,
 and the swap (load) time. Client and server share this 2-core machine.
 

@@ -1,4 +1,4 @@
-//! Training is reproducible as documented (`TrainOptions`, README): the same data, seed and
+//! Training is reproducible as documented (`TrainOptions`, ARCHITECTURE.md): the same data, seed and
 //! thread count give bit-identical weights — arcs, labels, both taggers — and a different seed
 //! gives different ones (so the comparison can fail).
 

@@ -7,6 +7,7 @@ pub mod demo;
 pub mod eval;
 pub mod health;
 pub mod parse;
+pub mod query;
 pub mod store;
 pub mod train;
 
