@@ -46,8 +46,9 @@ pub(crate) fn prefetch(table: &[f32], index: usize) {
 /// of megabytes costs a TLB miss — a page walk — on nearly every lookup; a parse makes tens of
 /// thousands. On Linux the table is advised as transparent huge pages (`MADV_HUGEPAGE`, 2 MiB)
 /// before its first write, so the kernel backs it with a few TLB entries instead of thousands
-/// (a 25-word parse on the demo model ran 15–20% faster; docs/decisions/allocator-and-huge-pages.md). Only a hint:
-/// where huge pages are off, or elsewhere, the table is an ordinary zeroed vector.
+/// (a 25-word parse on the demo model ran 15–20% faster;
+/// docs/decisions/allocator-and-huge-pages.md). Only a hint: where huge pages are off, or
+/// elsewhere, the table is an ordinary zeroed vector.
 pub fn weight_table(len: usize) -> Vec<f32> {
     // Zeroed memory of this size comes straight from the kernel (calloc → mmap) and is not
     // touched until written, so the advice applies before any page is faulted in.
