@@ -31,7 +31,7 @@ def main():
     os.makedirs(work)
     store = os.path.join(work, "store")
     http_port, grpc_port = cs.free_port(), cs.free_port()
-    extra = ["--max-tokens", "512", "--default-model", "demo"] if full else []
+    extra = ["--demo"] + (["--max-tokens", "512", "--default-model", "demo"] if full else [])
     proc, base = cs.start(binary, store, work, http_port, grpc_port, poll="5", extra=extra)
     if turkish:
         # A second model, served next to the bootstrapped demo model once the follower sees it.

@@ -15,35 +15,17 @@ Usage: check_pipeline_identity.py BINARY MODEL_DIR GOLD_CONLLU WORK_DIR
 import json
 import os
 import shutil
-import socket
 import subprocess
 import sys
-import time
 import urllib.request
 
 import conllu  # PyPI `conllu`: an outside reader for the CLI's output
 import grpc
-from grpc_tools import protoc
 
-ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import check_service as cs  # noqa: E402  (free_port, generate_stubs, start, publish, promote)
+
 BATCH = 32
-
-
-def free_port():
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
-def generate_stubs(out):
-    os.makedirs(out, exist_ok=True)
-    code = protoc.main(["grpc_tools.protoc", f"-I{ROOT}/proto", f"--python_out={out}",
-                        f"--grpc_python_out={out}", f"{ROOT}/proto/arcwright/v1/parser.proto"])
-    if code != 0:
-        raise SystemExit("protoc failed")
-    for d in ("arcwright", "arcwright/v1"):
-        open(os.path.join(out, d, "__init__.py"), "a").close()
-    sys.path.insert(0, out)
 
 
 def library_parses(binary, model, gold_text, decoder):
@@ -68,32 +50,16 @@ def main():
     forms = [[t["form"] for t in s if isinstance(t["id"], int)] for s in conllu.parse(gold_text)]
     forms = [f for f in forms if f]
     store = os.path.join(work, "store")
-    version = subprocess.run([binary, "store", "publish", "--store", store, "--name", "m", model],
-                             capture_output=True, text=True, check=True).stdout.strip()
-    subprocess.run([binary, "store", "promote", "--store", store, "--name", "m", "--version", version],
-                   capture_output=True, check=True)
-    generate_stubs(os.path.join(work, "stubs"))
+    cs.promote(binary, store, "m", cs.publish(binary, store, "m", model))
+    cs.generate_stubs(os.path.join(work, "stubs"))
     from arcwright.v1 import parser_pb2, parser_pb2_grpc
 
-    http_port, grpc_port = free_port(), free_port()
-    log = open(os.path.join(work, "serve.log"), "w")
-    server = subprocess.Popen([binary, "serve", "--store", store, "--http", f"127.0.0.1:{http_port}",
-                               "--grpc", f"127.0.0.1:{grpc_port}", "--cache-dir", os.path.join(work, "cache"),
-                               "--max-tokens", "4096", "--max-sentences", str(BATCH),
-                               "--max-body-bytes", str(8 << 20), "--deadline-seconds", "120"],
-                              stdout=log, stderr=log)
+    http_port, grpc_port = cs.free_port(), cs.free_port()
+    server, base = cs.start(binary, store, work, http_port, grpc_port,
+                            extra=["--max-tokens", "4096", "--max-sentences", str(BATCH),
+                                   "--max-body-bytes", str(8 << 20), "--deadline-seconds", "120"])
     failures = []
     try:
-        base = f"http://127.0.0.1:{http_port}"
-        for _ in range(300):
-            try:
-                with urllib.request.urlopen(base + "/readyz", timeout=2) as r:
-                    if r.status == 200:
-                        break
-            except OSError:
-                time.sleep(0.1)
-        else:
-            raise SystemExit("the service did not become ready (see serve.log)")
         channel = grpc.insecure_channel(f"127.0.0.1:{grpc_port}",
                                         options=[("grpc.max_receive_message_length", 64 << 20)])
         stub = parser_pb2_grpc.ParserStub(channel)

@@ -1,7 +1,5 @@
 //! `arcwright health`: one grpc.health.v1 `Check` against a running service.
 
-use std::time::Duration;
-
 use tonic_health::pb::health_check_response::ServingStatus;
 use tonic_health::pb::{HealthCheckRequest, health_client::HealthClient};
 
@@ -9,22 +7,7 @@ use super::Failure;
 use crate::cli::HealthOptions;
 
 pub fn run(options: &HealthOptions) -> Result<(), Failure> {
-    if !(options.timeout > 0.0 && options.timeout <= 3600.0) {
-        return Err(Failure::bad_input(format!(
-            "--timeout {}: expected seconds in (0, 3600]",
-            options.timeout
-        )));
-    }
-    let timeout = Duration::from_secs_f64(options.timeout);
-    let address = if options.grpc.contains("://") {
-        options.grpc.clone()
-    } else {
-        format!("http://{}", options.grpc)
-    };
-    let endpoint = tonic::transport::Endpoint::from_shared(address.clone())
-        .map_err(|e| Failure::bad_input(format!("--grpc {}: {e}", options.grpc)))?
-        .connect_timeout(timeout)
-        .timeout(timeout);
+    let (endpoint, address) = super::grpc_endpoint(&options.grpc, options.timeout)?;
     let runtime = tokio::runtime::Builder::new_current_thread()
         .enable_all()
         .build()

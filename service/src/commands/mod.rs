@@ -36,6 +36,30 @@ impl Failure {
     }
 }
 
+/// A gRPC endpoint for `--grpc ADDR` (an address, or a URL) with connect and call timeouts of
+/// `timeout_seconds`; also returns the URL it connects to, for messages.
+pub fn grpc_endpoint(
+    grpc: &str,
+    timeout_seconds: f64,
+) -> Result<(tonic::transport::Endpoint, String), Failure> {
+    if !(timeout_seconds > 0.0 && timeout_seconds <= 3600.0) {
+        return Err(Failure::bad_input(format!(
+            "--timeout {timeout_seconds}: expected seconds in (0, 3600]"
+        )));
+    }
+    let timeout = std::time::Duration::from_secs_f64(timeout_seconds);
+    let address = if grpc.contains("://") {
+        grpc.to_string()
+    } else {
+        format!("http://{grpc}")
+    };
+    let endpoint = tonic::transport::Endpoint::from_shared(address.clone())
+        .map_err(|e| Failure::bad_input(format!("--grpc {grpc}: {e}")))?
+        .connect_timeout(timeout)
+        .timeout(timeout);
+    Ok((endpoint, address))
+}
+
 /// Reads a CoNLL-U file strictly (errors name file, line and column).
 pub fn read_treebank(
     path: &std::path::Path,

@@ -2,7 +2,6 @@
 //! from `proto/` — the quickest way to try a deployment without another tool.
 
 use std::io::Read;
-use std::time::Duration;
 
 use arcwright_parser::decode::Algorithm;
 use arcwright_proto::parser_client::ParserClient;
@@ -12,12 +11,6 @@ use super::Failure;
 use crate::cli::QueryOptions;
 
 pub fn run(options: &QueryOptions) -> Result<(), Failure> {
-    if !(options.timeout > 0.0 && options.timeout <= 3600.0) {
-        return Err(Failure::bad_input(format!(
-            "--timeout {}: expected seconds in (0, 3600]",
-            options.timeout
-        )));
-    }
     let text = match &options.text {
         Some(text) => text.clone(),
         None => {
@@ -28,16 +21,7 @@ pub fn run(options: &QueryOptions) -> Result<(), Failure> {
             text
         }
     };
-    let timeout = Duration::from_secs_f64(options.timeout);
-    let address = if options.grpc.contains("://") {
-        options.grpc.clone()
-    } else {
-        format!("http://{}", options.grpc)
-    };
-    let endpoint = tonic::transport::Endpoint::from_shared(address.clone())
-        .map_err(|e| Failure::bad_input(format!("--grpc {}: {e}", options.grpc)))?
-        .connect_timeout(timeout)
-        .timeout(timeout);
+    let (endpoint, address) = super::grpc_endpoint(&options.grpc, options.timeout)?;
     let decoder = match options.decoder.map(Algorithm::from) {
         None => Decoder::Unspecified,
         Some(Algorithm::Projective) => Decoder::Projective,

@@ -133,6 +133,27 @@ pub struct ModelsResponse {
     models: Vec<serde_json::Value>,
 }
 
+/// The error replies of the parse routes (documentation only: every error is an `ApiError`).
+#[derive(utoipa::IntoResponses)]
+#[allow(dead_code)]
+enum ParseErrors {
+    #[response(status = 400, description = "Bad input")]
+    BadInput(ErrorResponse),
+    #[response(status = 404, description = "Unknown model")]
+    UnknownModel(ErrorResponse),
+    #[response(status = 413, description = "Body over the limit")]
+    TooLarge(ErrorResponse),
+    #[response(
+        status = 429,
+        description = "Too many requests in flight (load shedding)"
+    )]
+    Overloaded(ErrorResponse),
+    #[response(status = 503, description = "No model loaded yet, or shutting down")]
+    Unavailable(ErrorResponse),
+    #[response(status = 504, description = "Deadline exceeded")]
+    Deadline(ErrorResponse),
+}
+
 fn sentences(results: Vec<Vec<TokenOut>>) -> Vec<Sentence> {
     results
         .into_iter()
@@ -225,12 +246,7 @@ fn decode_json<T: for<'de> Deserialize<'de>>(
 #[utoipa::path(post, path = "/v1/parse", request_body = ParseBody,
     summary = "Parse one text (one or more sentences) or one tokenized sentence",
     responses((status = 200, description = "Parsed", body = ParseResponse),
-        (status = 400, description = "Bad input", body = ErrorResponse),
-        (status = 404, description = "Unknown model", body = ErrorResponse),
-        (status = 413, description = "Body over the limit", body = ErrorResponse),
-        (status = 429, description = "Too many requests in flight (load shedding)", body = ErrorResponse),
-        (status = 503, description = "No model loaded yet, or shutting down", body = ErrorResponse),
-        (status = 504, description = "Deadline exceeded", body = ErrorResponse)))]
+        ParseErrors))]
 pub(super) async fn parse(
     State(state): State<Arc<AppState>>,
     body: Bytes,
@@ -261,12 +277,7 @@ pub(super) async fn parse(
 #[utoipa::path(post, path = "/v1/parse/batch", request_body = BatchBody,
     summary = "Parse several inputs; results keep input order",
     responses((status = 200, description = "Parsed, in input order", body = BatchResponse),
-        (status = 400, description = "Bad input", body = ErrorResponse),
-        (status = 404, description = "Unknown model", body = ErrorResponse),
-        (status = 413, description = "Body over the limit", body = ErrorResponse),
-        (status = 429, description = "Too many requests in flight (load shedding)", body = ErrorResponse),
-        (status = 503, description = "No model loaded yet, or shutting down", body = ErrorResponse),
-        (status = 504, description = "Deadline exceeded", body = ErrorResponse)))]
+        ParseErrors))]
 pub(super) async fn parse_batch(
     State(state): State<Arc<AppState>>,
     body: Bytes,
