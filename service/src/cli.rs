@@ -329,9 +329,9 @@ impl From<AlgorithmArg> for arcwright_parser::decode::Algorithm {
 
 #[derive(Debug, Args)]
 pub struct DecodeOptions {
-    /// Which decoder to run.
-    #[arg(long, value_enum, default_value = "projective")]
-    pub algorithm: AlgorithmArg,
+    /// Which decoder to run (`--algorithm` is accepted too).
+    #[arg(long, alias = "algorithm", value_enum, default_value = "projective")]
+    pub decoder: AlgorithmArg,
     /// Allow several words to attach to the root (default: exactly one).
     #[arg(long)]
     pub multi_root: bool,

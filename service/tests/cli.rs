@@ -65,7 +65,7 @@ fn decode_rejects_malformed_input_with_exit_code_2() {
     for (stdin, expected) in cases {
         check_rejected(stdin, &[], expected);
     }
-    let (code, _, stderr) = run(&["decode", "--algorithm", "sideways"], b"{}");
+    let (code, _, stderr) = run(&["decode", "--decoder", "sideways"], b"{}");
     assert_eq!(code, 2, "{stderr}");
     assert!(stderr.contains("sideways"));
 }
@@ -76,7 +76,7 @@ fn decode_prints_heads_score_and_marginals() {
     let input = r#"{"scores": [[0,5,1,1],[0,0,2,1],[0,3,0,4],[0,1,2,0]]}"#;
     for algorithm in ["projective", "non-projective"] {
         let (code, stdout, stderr) = run(
-            &["decode", "--algorithm", algorithm, "--marginals"],
+            &["decode", "--decoder", algorithm, "--marginals"],
             input.as_bytes(),
         );
         assert_eq!(code, 0, "{stderr}");

@@ -2,7 +2,7 @@
 
 networkx (PyPI) `maximum_spanning_arborescence` on random dense graphs rooted at 0 (node 0 has
 no incoming edges, so every spanning arborescence is rooted there): the total score of our
-`arcwright decode --algorithm non-projective --multi-root` must equal networkx's optimum, and
+`arcwright decode --decoder non-projective --multi-root` must equal networkx's optimum, and
 our heads must form a tree whose arcs add up to the reported score.
 """
 
@@ -50,7 +50,7 @@ def main():
                     s = float(rng.randint(-3, 3)) if integer else rng.uniform(-scale, scale)
                     scores[h][m] = s
                     graph.add_edge(h, m, weight=s)
-        ours = decode(binary, scores, "--algorithm", "non-projective", "--multi-root")
+        ours = decode(binary, scores, "--decoder", "non-projective", "--multi-root")
         reference = nx.maximum_spanning_arborescence(graph, attr="weight", preserve_attrs=True)
         best = sum(d["weight"] for _, _, d in reference.edges(data=True))
         heads = ours["heads"]
@@ -69,7 +69,7 @@ def main():
 
 
 def check_marginals(binary, rng):
-    """Tree marginals and log-partition of `decode --algorithm non-projective --marginals`
+    """Tree marginals and log-partition of `decode --decoder non-projective --marginals`
     against an independent enumeration: networkx `ArborescenceIterator` lists every spanning
     arborescence rooted at 0; probabilities are summed here with log-sum-exp. Peaked scores
     (magnitude up to 1e3) included: the cancellation-prone regime of the Matrix-Tree Theorem."""
@@ -109,7 +109,7 @@ def check_marginals(binary, rng):
                     p = math.exp(x - log_z)
                     for m in range(1, n + 1):
                         expected[t[m]][m] += p
-                ours = decode(binary, scores, "--algorithm", "non-projective", "--marginals", *flags)
+                ours = decode(binary, scores, "--decoder", "non-projective", "--marginals", *flags)
                 error = max(abs(ours["marginals"][h][m] - expected[h][m])
                             for h in range(n + 1) for m in range(1, n + 1))
                 if abs(ours["log_partition"] - log_z) > 1e-9 * max(1.0, abs(log_z)) or error > 1e-9:

@@ -37,7 +37,7 @@ pub fn run(options: &DecodeOptions) -> Result<(), Failure> {
     })?;
     let scores = ScoreMatrix::from_rows(&input.scores)
         .map_err(|e| Failure::bad_input(format!("scores: {e}")))?;
-    let algorithm = options.algorithm.into();
+    let algorithm = options.decoder.into();
     let root = if options.multi_root {
         RootConstraint::MultiRoot
     } else {
