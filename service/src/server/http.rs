@@ -252,17 +252,18 @@ pub(super) async fn parse(
     body: Bytes,
 ) -> Result<Json<ParseResponse>, ApiError> {
     let request: ParseBody = decode_json(&state, &body).inspect_err(|e| count("parse", e))?;
-    let job = ParseJob {
-        model: request.model,
-        decoder: decoder_from_name(request.decoder.as_deref())
-            .inspect_err(|e| count("parse", e))?,
-        confidence: request.confidence,
-        inputs: vec![SentenceInput {
-            text: request.text,
-            tokens: request.tokens,
-            tags: request.tags,
-        }],
+    let input = SentenceInput {
+        text: request.text,
+        tokens: request.tokens,
+        tags: request.tags,
     };
+    let job = parse_job(
+        "parse",
+        request.model,
+        request.decoder,
+        request.confidence,
+        vec![input],
+    )?;
     let mut outcome = state
         .engine
         .parse(job, state.engine.limits.deadline, "http", "parse")
@@ -283,21 +284,22 @@ pub(super) async fn parse_batch(
     body: Bytes,
 ) -> Result<Json<BatchResponse>, ApiError> {
     let request: BatchBody = decode_json(&state, &body).inspect_err(|e| count("parse_batch", e))?;
-    let job = ParseJob {
-        model: request.model,
-        decoder: decoder_from_name(request.decoder.as_deref())
-            .inspect_err(|e| count("parse_batch", e))?,
-        confidence: request.confidence,
-        inputs: request
-            .sentences
-            .into_iter()
-            .map(|s| SentenceInput {
-                text: s.text,
-                tokens: s.tokens,
-                tags: s.tags,
-            })
-            .collect(),
-    };
+    let inputs = request
+        .sentences
+        .into_iter()
+        .map(|s| SentenceInput {
+            text: s.text,
+            tokens: s.tokens,
+            tags: s.tags,
+        })
+        .collect();
+    let job = parse_job(
+        "parse_batch",
+        request.model,
+        request.decoder,
+        request.confidence,
+        inputs,
+    )?;
     let outcome = state
         .engine
         .parse(job, state.engine.limits.deadline, "http", "parse_batch")
@@ -312,6 +314,22 @@ pub(super) async fn parse_batch(
             })
             .collect(),
     }))
+}
+
+/// A parse job from a request's fields; an unknown decoder is counted as the method's error.
+fn parse_job(
+    method: &str,
+    model: Option<String>,
+    decoder: Option<String>,
+    confidence: bool,
+    inputs: Vec<SentenceInput>,
+) -> Result<ParseJob, ApiError> {
+    Ok(ParseJob {
+        model,
+        decoder: decoder_from_name(decoder.as_deref()).inspect_err(|e| count(method, e))?,
+        confidence,
+        inputs,
+    })
 }
 
 fn count(method: &str, error: &ApiError) {
