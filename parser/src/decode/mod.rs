@@ -238,20 +238,6 @@ impl Heads {
         Heads(slots)
     }
 
-    /// From the heads of words 1..=n in order (as a CoNLL-U HEAD column or an API reply lists
-    /// them).
-    pub fn from_words(words: &[usize]) -> Heads {
-        let mut slots = Vec::with_capacity(words.len() + 1);
-        slots.push(0);
-        slots.extend_from_slice(words);
-        Heads(slots)
-    }
-
-    /// Number of words.
-    pub fn words(&self) -> usize {
-        self.0.len().saturating_sub(1)
-    }
-
     /// `(word, head)` for words 1..=n.
     pub fn arcs(&self) -> impl Iterator<Item = (usize, usize)> + '_ {
         self.0.iter().copied().enumerate().skip(1)
