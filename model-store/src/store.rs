@@ -46,6 +46,16 @@ impl Store {
     /// `s3://bucket/prefix` (credentials, region and endpoint from the standard `AWS_*`
     /// variables, e.g. `AWS_ENDPOINT_URL`; plain HTTP is allowed for endpoints on loopback).
     pub fn open(url: &str) -> Result<Store, StoreError> {
+        Store::open_with(url, true)
+    }
+
+    /// Like [`Store::open`], but a local store must exist already (for commands that only
+    /// read: a mistyped path is an error that names it, not a new empty store).
+    pub fn open_existing(url: &str) -> Result<Store, StoreError> {
+        Store::open_with(url, false)
+    }
+
+    fn open_with(url: &str, create: bool) -> Result<Store, StoreError> {
         let bad = |reason: &str| StoreError::BadUrl {
             url: url.to_string(),
             reason: reason.to_string(),
@@ -61,6 +71,11 @@ impl Store {
             }
             Location::Local(path) => path,
         };
+        if !create && !path.is_dir() {
+            return Err(StoreError::NotFound {
+                what: format!("store directory {}", path.display()),
+            });
+        }
         std::fs::create_dir_all(&path).map_err(|source| StoreError::Io {
             path: path.display().to_string(),
             source,
@@ -327,9 +342,9 @@ impl Store {
         Ok(out)
     }
 
-    /// Deletes all but the newest `keep` versions, never one an alias points at. Returns the
-    /// deleted versions. The manifest goes first, so a version being deleted is invisible at once.
-    pub async fn prune(&self, name: &str, keep: usize) -> Result<Vec<String>, StoreError> {
+    /// The versions [`Store::prune`] would delete: all but the newest `keep`, except those an
+    /// alias points at, oldest first.
+    pub async fn prunable(&self, name: &str, keep: usize) -> Result<Vec<String>, StoreError> {
         let protected: Vec<String> = self
             .aliases(name)
             .await?
@@ -338,11 +353,18 @@ impl Store {
             .collect();
         let versions = self.versions(name).await?;
         let cutoff = versions.len().saturating_sub(keep);
+        Ok(versions[..cutoff]
+            .iter()
+            .filter(|v| !protected.contains(v))
+            .cloned()
+            .collect())
+    }
+
+    /// Deletes all but the newest `keep` versions, never one an alias points at. Returns the
+    /// deleted versions. The manifest goes first, so a version being deleted is invisible at once.
+    pub async fn prune(&self, name: &str, keep: usize) -> Result<Vec<String>, StoreError> {
         let mut deleted = Vec::new();
-        for version in &versions[..cutoff] {
-            if protected.contains(version) {
-                continue;
-            }
+        for version in &self.prunable(name, keep).await? {
             let manifest_key = layout::manifest(&self.root, name, version);
             self.objects
                 .delete(&manifest_key)

@@ -118,6 +118,8 @@ pub struct EpochReport {
     pub train_tokens: usize,
     /// Dev UAS (percent, gold tags) with the averaged weights so far, if a dev set was given.
     pub dev_uas: Option<f64>,
+    /// Dev LAS (percent, gold tags), alongside `dev_uas`.
+    pub dev_las: Option<f64>,
 }
 
 fn sorted_unique(values: impl Iterator<Item = String>) -> Vec<String> {
@@ -286,12 +288,14 @@ pub fn train(
             weight_table_from(average_sum_arcs.iter().map(|x| x * scale));
         model.linear_mut().label_weights =
             weight_table_from(average_sum_labels.iter().map(|x| x * scale));
-        let dev_uas = (!dev.is_empty()).then(|| dev_attachment(&model, dev, decoder));
+        let dev_scores = (!dev.is_empty()).then(|| dev_attachment(&model, dev, decoder));
+        let dev_uas = dev_scores.map(|(uas, _)| uas);
         let report = EpochReport {
             epoch,
             train_errors,
             train_tokens,
             dev_uas,
+            dev_las: dev_scores.map(|(_, las)| las),
         };
         progress("epoch", Some(&report));
         if let Some(uas) = dev_uas {
@@ -489,9 +493,9 @@ fn train_shard(
     (arc_trainee, label_trainee, errors, tokens)
 }
 
-/// Dev UAS in percent with gold tags and morphology.
-fn dev_attachment(model: &Model, dev: &[Example], decoder: Algorithm) -> f64 {
-    let (mut correct, mut total) = (0usize, 0usize);
+/// Dev UAS and LAS in percent with gold tags and morphology.
+fn dev_attachment(model: &Model, dev: &[Example], decoder: Algorithm) -> (f64, f64) {
+    let (mut attached, mut labeled, mut total) = (0usize, 0usize, 0usize);
     for example in dev {
         let parsed = model.parse(
             &example.forms,
@@ -501,8 +505,12 @@ fn dev_attachment(model: &Model, dev: &[Example], decoder: Algorithm) -> f64 {
         );
         for (word, head) in parsed.heads.arcs() {
             total += 1;
-            correct += usize::from(head == example.heads[word]);
+            if head == example.heads[word] {
+                attached += 1;
+                labeled += usize::from(parsed.labels[word - 1] == example.labels[word - 1]);
+            }
         }
     }
-    100.0 * correct as f64 / total.max(1) as f64
+    let percent = |n: usize| 100.0 * n as f64 / total.max(1) as f64;
+    (percent(attached), percent(labeled))
 }

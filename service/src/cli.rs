@@ -159,10 +159,15 @@ pub enum StoreAction {
     },
     /// Delete all but the newest N versions, never one an alias points at.
     Prune {
+        /// Model name.
         #[arg(long)]
         name: String,
+        /// How many of the newest versions to keep (versions an alias points at are always kept).
         #[arg(long)]
         keep: usize,
+        /// Delete; without it, only list what would be deleted.
+        #[arg(long)]
+        yes: bool,
     },
 }
 
@@ -227,12 +232,18 @@ pub struct TrainOptions {
 
 #[derive(Debug, Args)]
 pub struct EvalOptions {
+    /// Model directory (as written by `arcwright train`).
     #[arg(long)]
     pub model: PathBuf,
+    /// Gold CoNLL-U file (every word with HEAD and DEPREL).
     #[arg(long)]
     pub gold: PathBuf,
+    /// Decoder (default: the one the model was trained for).
     #[arg(long, value_enum)]
     pub decoder: Option<AlgorithmArg>,
+    /// Also score the tokens whose gold label is not LABEL (repeatable: none of the labels).
+    #[arg(long = "exclude-label", value_name = "LABEL")]
+    pub exclude_labels: Vec<String>,
     /// Use the gold UPOS and FEATS instead of predicting them.
     #[arg(long)]
     pub gold_tags: bool,
@@ -350,6 +361,8 @@ pub struct ConlluOptions {
 pub enum ConlluAction {
     /// Check files; print every problem with file, line and column. Exit 2 if any.
     Check {
+        /// CoNLL-U files to check.
+        #[arg(required = true)]
         files: Vec<PathBuf>,
         /// Keep reading after a broken sentence and report all problems.
         #[arg(long)]

@@ -12,12 +12,28 @@ use std::process::ExitCode;
 #[global_allocator]
 static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
 
+/// Commands that write to stdout end quietly when the reader goes away (`arcwright … | head`):
+/// the default action of SIGPIPE, which Rust's runtime replaces with an error that `println!`
+/// turns into a panic. Not for `serve`, where a peer closing a socket must stay an I/O error.
+#[cfg(unix)]
+fn end_quietly_on_closed_pipe() {
+    #[allow(unsafe_code)] // restoring a signal's default action; no handler runs Rust code
+    // SAFETY: called once, before any thread is started; SIG_DFL installs no handler.
+    unsafe {
+        libc::signal(libc::SIGPIPE, libc::SIG_DFL);
+    }
+}
+
 fn main() -> ExitCode {
     let matches = <cli::Cli as clap::CommandFactory>::command().get_matches();
     let args = match <cli::Cli as clap::FromArgMatches>::from_arg_matches(&matches) {
         Ok(args) => args,
         Err(e) => e.exit(),
     };
+    #[cfg(unix)]
+    if !matches!(args.command, cli::Command::Serve(_)) {
+        end_quietly_on_closed_pipe();
+    }
     let outcome = match args.command {
         cli::Command::Decode(options) => commands::decode::run(&options),
         cli::Command::Conllu(options) => commands::conllu::run(&options),
@@ -62,7 +78,9 @@ fn serve(args: &server::config::ServeArgs) -> Result<(), commands::Failure> {
         .build()
         .map_err(commands::Failure::runtime)?;
     runtime.block_on(server::run(config)).map_err(|e| match e {
-        server::StartupError::Config(_) | server::StartupError::EmptyStore { .. } => {
+        server::StartupError::Config(_)
+        | server::StartupError::EmptyStore { .. }
+        | server::StartupError::Store(arcwright_store::StoreError::NotFound { .. }) => {
             commands::Failure::bad_input(e)
         }
         _ => commands::Failure::runtime(e),

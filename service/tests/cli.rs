@@ -1,4 +1,5 @@
-//! The `arcwright` binary as a user runs it: `decode` on good and malformed input, `conllu check`.
+//! The `arcwright` binary as a user runs it: `decode` on good and malformed input, `conllu check`,
+//! refusals of what makes no sense, and a demo model through train, parse, eval, store and serve.
 
 use std::io::Write;
 use std::process::{Command, Stdio};
@@ -152,5 +153,216 @@ fn serve_rejects_a_bad_settings_file_with_file_and_line() {
         stderr.contains(&format!("{file}:1: unknown setting \"colour\"")),
         "{stderr}"
     );
+    std::fs::remove_dir_all(&dir).ok();
+}
+
+/// A scratch directory for one test.
+fn scratch(name: &str) -> std::path::PathBuf {
+    let dir = std::env::temp_dir().join(format!("arcwright-cli-{name}-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).expect("scratch dir");
+    dir
+}
+
+/// Input and requests that make no sense are refused with a message that says what to do,
+/// exit code 2, and nothing created on the way.
+#[test]
+fn nonsense_is_refused_with_what_to_do() {
+    let dir = scratch("refusals");
+    let path = |p: &str| dir.join(p).display().to_string();
+    std::fs::write(dir.join("empty.conllu"), "").expect("write");
+    let missing_store = path("no-such-store");
+    let cases: Vec<(Vec<String>, &[u8], &str)> = vec![
+        (
+            vec!["conllu".into(), "check".into()],
+            b"",
+            "required arguments were not provided",
+        ),
+        (
+            vec![
+                "store".into(),
+                "list".into(),
+                "--store".into(),
+                missing_store.clone(),
+            ],
+            b"",
+            "no-such-store",
+        ),
+        (
+            vec![
+                "serve".into(),
+                "--store".into(),
+                missing_store.clone(),
+                "--http".into(),
+                "127.0.0.1:0".into(),
+                "--grpc".into(),
+                "127.0.0.1:0".into(),
+            ],
+            b"",
+            "no-such-store",
+        ),
+    ];
+    for (args, stdin, expected) in cases {
+        let args: Vec<&str> = args.iter().map(String::as_str).collect();
+        let (code, _, stderr) = run(&args, stdin);
+        assert_eq!(code, 2, "{args:?}: {stderr}");
+        assert!(stderr.contains(expected), "{args:?}: {stderr}");
+    }
+    assert!(
+        !dir.join("no-such-store").exists(),
+        "a read-only command created the store"
+    );
+    std::fs::remove_dir_all(&dir).ok();
+}
+
+/// Training, evaluation, parsing, pruning and the settings check as a user meets them.
+#[test]
+fn a_model_from_demo_data_through_the_commands() {
+    let dir = scratch("model");
+    let path = |p: &str| dir.join(p).display().to_string();
+    let (code, demo, stderr) = run(&["demo-data", "--sentences", "300", "--seed", "4"], b"");
+    assert_eq!(code, 0, "{stderr}");
+    std::fs::write(dir.join("demo.conllu"), &demo).expect("write");
+    std::fs::write(dir.join("empty.conllu"), "").expect("write");
+    // stderr is a pipe here, not a terminal: one plain line per epoch, with dev scores.
+    let (code, _, stderr) = run(
+        &[
+            "train",
+            "--train",
+            &path("demo.conllu"),
+            "--dev",
+            &path("demo.conllu"),
+            "--out",
+            &path("m"),
+            "--epochs",
+            "2",
+        ],
+        b"",
+    );
+    assert_eq!(code, 0, "{stderr}");
+    let epochs: Vec<&str> = stderr.lines().filter(|l| l.starts_with("epoch")).collect();
+    assert_eq!(epochs.len(), 2, "{stderr}");
+    assert!(
+        epochs[1].contains("dev UAS") && epochs[1].contains("LAS"),
+        "{stderr}"
+    );
+    assert!(
+        !stderr.contains('\u{1b}'),
+        "no terminal codes in a pipe: {stderr:?}"
+    );
+
+    // Plain text given as CoNLL-U: the message names --input text.
+    let (code, _, stderr) = run(
+        &["parse", "--model", &path("m")],
+        b"The pilot signed the manifest.\n",
+    );
+    assert_eq!(code, 2, "{stderr}");
+    assert!(stderr.contains("--input text"), "{stderr}");
+
+    // Evaluation: nothing to score is an error; excluded labels get their own row.
+    let (code, _, stderr) = run(
+        &[
+            "eval",
+            "--model",
+            &path("m"),
+            "--gold",
+            &path("empty.conllu"),
+        ],
+        b"",
+    );
+    assert_eq!(code, 2, "{stderr}");
+    assert!(stderr.contains("no annotated sentence"), "{stderr}");
+    let (code, stdout, stderr) = run(
+        &[
+            "eval",
+            "--model",
+            &path("m"),
+            "--gold",
+            &path("demo.conllu"),
+            "--exclude-label",
+            "punct",
+        ],
+        b"",
+    );
+    assert_eq!(code, 0, "{stderr}");
+    let report: serde_json::Value = serde_json::from_str(&stdout).expect("JSON report");
+    assert!(report["excluding_labels"]["tokens"].as_u64() < report["tokens"].as_u64());
+    assert!(stderr.contains("projective sentences"), "{stderr}");
+
+    // Prune shows what it would delete and deletes only with --yes.
+    let store = path("store");
+    let mut versions = Vec::new();
+    for _ in 0..2 {
+        let (code, stdout, stderr) = run(
+            &[
+                "store",
+                "publish",
+                "--store",
+                &store,
+                "--name",
+                "m",
+                &path("m"),
+            ],
+            b"",
+        );
+        assert_eq!(code, 0, "{stderr}");
+        versions.push(stdout.trim().to_string());
+    }
+    let prune = |yes: bool| {
+        let mut args = vec![
+            "store", "prune", "--store", &store, "--name", "m", "--keep", "0",
+        ];
+        if yes {
+            args.push("--yes");
+        }
+        run(&args, b"")
+    };
+    let (code, stdout, stderr) = prune(false);
+    assert_eq!(code, 0, "{stderr}");
+    assert_eq!(stdout.lines().count(), 2, "{stdout}");
+    assert!(
+        stdout.lines().all(|l| l.starts_with("would delete")),
+        "{stdout}"
+    );
+    assert!(stderr.contains("--yes"), "{stderr}");
+    let (code, stdout, _) = run(&["store", "list", "--store", &store, "--name", "m"], b"");
+    assert_eq!(code, 0);
+    assert!(
+        versions.iter().all(|v| stdout.contains(v.as_str())),
+        "{stdout}"
+    );
+    let (code, stdout, stderr) = prune(true);
+    assert_eq!(code, 0, "{stderr}");
+    assert_eq!(
+        stdout.lines().filter(|l| l.starts_with("deleted")).count(),
+        2
+    );
+
+    // The settings check prints a settings file that reads back, and never the token.
+    std::fs::write(dir.join("token"), "a-token-of-more-than-16-characters").expect("write");
+    let (code, stdout, stderr) = run(
+        &[
+            "serve",
+            "--store",
+            &store,
+            "--admin-token-file",
+            &path("token"),
+            "--check-config",
+        ],
+        b"",
+    );
+    assert_eq!(code, 0, "{stderr}");
+    assert!(!stdout.contains("a-token-of"), "{stdout}");
+    std::fs::write(dir.join("resolved.toml"), &stdout).expect("write");
+    let (code, _, stderr) = run(
+        &[
+            "serve",
+            "--config",
+            &path("resolved.toml"),
+            "--check-config",
+        ],
+        b"",
+    );
+    assert_eq!(code, 0, "the printed settings read back: {stderr}");
     std::fs::remove_dir_all(&dir).ok();
 }

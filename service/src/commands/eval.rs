@@ -12,8 +12,18 @@ pub fn run(options: &EvalOptions) -> Result<(), Failure> {
     let model = Model::load(&options.model).map_err(Failure::bad_input)?;
     let load_seconds = load_started.elapsed().as_secs_f64();
     let document = read_treebank(&options.gold)?;
+    if !document
+        .sentences
+        .iter()
+        .any(|s| Example::from_sentence(s).is_some())
+    {
+        return Err(Failure::bad_input(format!(
+            "{}: no annotated sentence to evaluate against (every word needs HEAD and DEPREL)",
+            options.gold.display()
+        )));
+    }
     let decoder = options.decoder.map(Into::into);
-    let mut evaluator = Evaluator::excluding_label("ig");
+    let mut evaluator = Evaluator::excluding_labels(&options.exclude_labels);
     let started = std::time::Instant::now();
     for example in document.sentences.iter().filter_map(Example::from_sentence) {
         let parsed = if options.gold_tags {

@@ -71,7 +71,7 @@ async fn load_model(options: &ParseOptions) -> Result<(Model, String), Failure> 
     let (dir, id): (PathBuf, String) = match (&options.model, &options.store, &options.name) {
         (Some(dir), _, _) => (dir.clone(), dir.display().to_string()),
         (None, Some(url), Some(name)) => {
-            let store = Store::open(url).map_err(store_failure)?;
+            let store = Store::open_existing(url).map_err(store_failure)?;
             let version = version_or_live(&store, name, options.version.as_deref()).await?;
             let (dir, _) = store
                 .fetch(name, &version, &options.cache)
@@ -89,6 +89,14 @@ async fn load_model(options: &ParseOptions) -> Result<(Model, String), Failure> 
     Ok((model, id))
 }
 
+/// Whether the first line that is neither blank nor a comment has no tab: text, not CoNLL-U.
+fn looks_like_plain_text(bytes: &[u8]) -> bool {
+    String::from_utf8_lossy(bytes)
+        .lines()
+        .find(|line| !line.trim().is_empty() && !line.starts_with('#'))
+        .is_some_and(|line| !line.contains('\t'))
+}
+
 /// Sentences of one input in the chosen format; errors name the source (and line, for CoNLL-U).
 fn read_sentences(
     source: &str,
@@ -102,7 +110,17 @@ fn read_sentences(
     Ok(match format {
         InputFormat::Conllu => {
             conllu::read_bytes(source, bytes)
-                .map_err(Failure::bad_input)?
+                .map_err(|e| {
+                    if looks_like_plain_text(bytes) {
+                        Failure::bad_input(format!(
+                            "{source}: the input is not CoNLL-U (no tab-separated fields); \
+                             for raw text use --input text, for one sentence of space-separated \
+                             tokens per line --input tokens"
+                        ))
+                    } else {
+                        Failure::bad_input(e)
+                    }
+                })?
                 .sentences
         }
         InputFormat::Text => tokenize::sentences(text()?)

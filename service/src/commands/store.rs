@@ -42,7 +42,12 @@ pub fn run(options: &StoreOptions) -> Result<(), Failure> {
         .build()
         .map_err(Failure::runtime)?;
     runtime.block_on(async {
-        let store = Store::open(&options.store).map_err(failure)?;
+        // Only publishing may create a local store; every other action needs one that exists.
+        let store = match options.action {
+            StoreAction::Publish { .. } => Store::open(&options.store),
+            _ => Store::open_existing(&options.store),
+        }
+        .map_err(failure)?;
         run_action(&store, &options.action).await
     })
 }
@@ -243,7 +248,18 @@ async fn run_action(store: &Store, action: &StoreAction) -> Result<(), Failure> 
                 }
             }
         }
-        StoreAction::Prune { name, keep } => {
+        StoreAction::Prune { name, keep, yes } => {
+            if !yes {
+                let prunable = store.prunable(name, *keep).await.map_err(failure)?;
+                for v in &prunable {
+                    println!("would delete {name} {v}");
+                }
+                eprintln!(
+                    "{} version(s) of {name} would be deleted; run again with --yes to delete them",
+                    prunable.len()
+                );
+                return Ok(());
+            }
             for v in store.prune(name, *keep).await.map_err(failure)? {
                 println!("deleted {name} {v}");
             }

@@ -1,5 +1,6 @@
 //! `arcwright train`: CoNLL-U in, model directory out.
 
+use std::io::IsTerminal;
 use std::time::Instant;
 
 use arcwright_parser::features::FeatureConfig;
@@ -67,7 +68,13 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
         threads,
         options.seed
     );
-    let bar = indicatif::ProgressBar::new(options.epochs as u64);
+    // A progress bar on a terminal; one plain line per epoch otherwise (CI, job logs).
+    let terminal = std::io::stderr().is_terminal();
+    let bar = if terminal {
+        indicatif::ProgressBar::new(options.epochs as u64)
+    } else {
+        indicatif::ProgressBar::hidden()
+    };
     bar.set_style(
         indicatif::ProgressStyle::with_template(
             "{prefix} [{bar:30}] epoch {pos}/{len} {msg} ({elapsed})",
@@ -76,17 +83,27 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
         .progress_chars("=> "),
     );
     bar.set_prefix("training");
+    let say = |line: String| {
+        if terminal {
+            bar.println(line);
+        } else {
+            eprintln!("{line}");
+        }
+    };
     let mut model = train::train(&train_set, &dev_set, &settings, &mut |stage, report| {
         let Some(r) = report else {
-            bar.println(stage);
+            say(stage.to_string());
             return;
         };
-        bar.println(format!(
-            "epoch {:>2}: train errors {:.2}%{}  [{:.1} s]",
+        let dev = match (r.dev_uas, r.dev_las) {
+            (Some(uas), Some(las)) => format!(", dev UAS {uas:.2}% LAS {las:.2}% (gold tags)"),
+            _ => String::new(),
+        };
+        say(format!(
+            "epoch {:>2}/{}: train errors {:.2}%{dev}  [{:.1} s]",
             r.epoch,
+            options.epochs,
             100.0 * r.train_errors as f64 / r.train_tokens.max(1) as f64,
-            r.dev_uas
-                .map_or(String::new(), |u| format!(", dev UAS {u:.2}% (gold tags)")),
             started.elapsed().as_secs_f64()
         ));
         bar.set_message(

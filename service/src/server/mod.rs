@@ -169,7 +169,12 @@ pub async fn activate(
 /// Builds the app state (no sockets): used by `run` and by tests.
 pub async fn build_state(config: &config::Config) -> Result<Arc<AppState>, StartupError> {
     metrics::init();
-    let store = Store::open(&config.store)?;
+    // Only a store the demo model may be built into is created when missing.
+    let store = if config.bootstrap_demo {
+        Store::open(&config.store)?
+    } else {
+        Store::open_existing(&config.store)?
+    };
     if !demo_model::has_live_model(&store).await? {
         if !config.bootstrap_demo {
             return Err(StartupError::EmptyStore {
@@ -211,11 +216,17 @@ pub async fn build_state(config: &config::Config) -> Result<Arc<AppState>, Start
     }))
 }
 
+/// Logs to stderr: the filter from `ARCWRIGHT_LOG` (default `info`), colours only on a terminal
+/// and never when `NO_COLOR` is set (no-color.org).
 pub fn init_tracing(json: bool) {
+    use std::io::IsTerminal;
     let filter = tracing_subscriber::EnvFilter::try_from_env("ARCWRIGHT_LOG")
         .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info"));
+    let colour = std::io::stderr().is_terminal()
+        && std::env::var_os("NO_COLOR").is_none_or(|v| v.is_empty());
     let builder = tracing_subscriber::fmt()
         .with_env_filter(filter)
+        .with_ansi(colour)
         .with_writer(std::io::stderr);
     let _ = if json {
         builder.json().try_init()
