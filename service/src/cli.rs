@@ -95,6 +95,7 @@ pub struct StoreOptions {
 pub enum StoreAction {
     /// Publish a model directory as a new version; prints the version id.
     Publish {
+        /// Model name.
         #[arg(long)]
         name: String,
         /// The model directory (as written by `arcwright train`).
@@ -105,6 +106,7 @@ pub enum StoreAction {
     },
     /// List models, or one model's versions with sizes, scores and aliases.
     List {
+        /// One model\'s versions (default: every model).
         #[arg(long)]
         name: Option<String>,
         /// One JSON document instead of a table.
@@ -113,31 +115,40 @@ pub enum StoreAction {
     },
     /// Point an alias (default `live`) at a version, after verifying it.
     Promote {
+        /// Model name.
         #[arg(long)]
         name: String,
+        /// Version id (as `store publish` printed it).
         #[arg(long)]
         version: String,
+        /// Alias name.
         #[arg(long, default_value = "live")]
         alias: String,
     },
     /// Move an alias (default `live`) back to its previous target.
     Rollback {
+        /// Model name.
         #[arg(long)]
         name: String,
+        /// Alias name.
         #[arg(long, default_value = "live")]
         alias: String,
     },
     /// Re-check the checksums of one version, or of every version of a model.
     Verify {
+        /// Model name.
         #[arg(long)]
         name: String,
+        /// Version id (default: every version for verify, the `live` one for fetch).
         #[arg(long)]
         version: Option<String>,
     },
     /// Download and verify a version (default: the `live` one) into a local directory.
     Fetch {
+        /// Model name.
         #[arg(long)]
         name: String,
+        /// Version id (default: every version for verify, the `live` one for fetch).
         #[arg(long)]
         version: Option<String>,
         /// Cache directory; the model lands in <cache>/<name>/<version>/.
@@ -146,8 +157,10 @@ pub enum StoreAction {
     },
     /// Follow an alias and print each new target as it appears (the service's change feed).
     Watch {
+        /// Model name.
         #[arg(long)]
         name: String,
+        /// Alias name.
         #[arg(long, default_value = "live")]
         alias: String,
         /// Seconds between polls.
@@ -205,8 +218,10 @@ pub struct TrainOptions {
     /// Output model directory.
     #[arg(long)]
     pub out: PathBuf,
+    /// Passes over the training data (fewer when the dev score stops improving).
     #[arg(long, default_value_t = 10)]
     pub epochs: usize,
+    /// Seed of the training order; the same seed and thread count give the same model.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
     /// Training threads (default: all cores).
@@ -375,7 +390,10 @@ pub enum ConlluAction {
     /// Split files into train/dev/test by sentence index modulo 10 (0 → test, 1 → dev, rest →
     /// train), counting sentences across the files in the order given.
     Split {
+        /// CoNLL-U files, counted as one sequence of sentences in the order given.
+        #[arg(required = true)]
         files: Vec<PathBuf>,
+        /// Folder for train.conllu, dev.conllu and test.conllu.
         #[arg(long)]
         out: PathBuf,
     },
