@@ -274,7 +274,10 @@ mod tests {
             report["excluding_labels"]["excluded_labels"],
             serde_json::json!(["ig"])
         );
-        assert_eq!(report["by_sentence_projectivity"]["projective"]["tokens"], 4);
+        assert_eq!(
+            report["by_sentence_projectivity"]["projective"]["tokens"],
+            4
+        );
         assert_eq!(report["tag_accuracy"], 100.0);
     }
 
