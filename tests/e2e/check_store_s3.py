@@ -8,32 +8,15 @@ Usage: check_store_s3.py BINARY MODEL_DIR EVAL_GOLD WORK_DIR
 import json
 import os
 import shutil
-import socket
 import subprocess
 import sys
-import threading
 import time
 
 import boto3
 
 
-def free_port():
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
-class Checks:
-    def __init__(self):
-        self.failures = []
-        self.passed = 0
-
-    def expect(self, condition, message):
-        if condition:
-            self.passed += 1
-        else:
-            self.failures.append(message)
-            print("FAIL", message, file=sys.stderr)
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+from check_service import Checks, free_port  # noqa: E402
 
 
 def start_moto(buckets, base_env=None):
