@@ -256,6 +256,24 @@ async fn bad_input_table_and_a_good_parse() {
             "no_route",
             "no such route",
         ),
+        (
+            "GET",
+            "/v1/parse",
+            Vec::new(),
+            None,
+            405,
+            "method_not_allowed",
+            "does not take GET",
+        ),
+        (
+            "DELETE",
+            "/v1/models",
+            Vec::new(),
+            None,
+            405,
+            "method_not_allowed",
+            "does not take DELETE",
+        ),
     ];
     for (method, path, body, auth, status, code, fragment) in cases {
         let (got, json) = call(&state, method, path, body, auth).await;
@@ -282,6 +300,33 @@ async fn bad_input_table_and_a_good_parse() {
     assert_eq!(tokens.len(), 6);
     let roots = tokens.iter().filter(|t| t["head"] == 0).count();
     assert_eq!(roots, 1, "single root: {json}");
+    for token in tokens {
+        let p = token["confidence"].as_f64().expect("confidence");
+        let text = token["confidence"].to_string();
+        let decimals = text.split('.').nth(1).map_or(0, str::len);
+        assert!(
+            (0.0..=1.0).contains(&p) && decimals <= 6,
+            "confidence {text}: six decimals at most"
+        );
+    }
+    // A browser pointed at the service's address lands on the console.
+    let response = server::http::router(state.clone())
+        .oneshot(Request::get("/").body(Body::empty()).expect("request"))
+        .await
+        .expect("response");
+    assert_eq!(response.status(), StatusCode::TEMPORARY_REDIRECT);
+    assert_eq!(response.headers()["location"], "/ui");
+    // A wrong method keeps the Allow header beside the JSON body.
+    let response = server::http::router(state.clone())
+        .oneshot(
+            Request::get("/v1/parse")
+                .body(Body::empty())
+                .expect("request"),
+        )
+        .await
+        .expect("response");
+    assert_eq!(response.status(), StatusCode::METHOD_NOT_ALLOWED);
+    assert_eq!(response.headers()["allow"], "POST");
     let (status, batch) = call(&state, "POST", "/v1/parse/batch", br#"{"sentences": [{"text": "A tug moved."}, {"tokens": ["the", "clerk", "signed"], "tags": ["DET", "NOUN", "VERB"]}]}"#.to_vec(), None).await;
     assert_eq!(status, StatusCode::OK, "{batch}");
     assert_eq!(

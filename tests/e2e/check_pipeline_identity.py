@@ -4,9 +4,10 @@ reply of `arcwright serve` (tags, heads, labels, confidences) equals, bit for bi
 over gRPC (Python stubs generated from proto/).
 
 Both sides get the word forms only (the service as `tokens`), so both tag, score, decode, label
-and compute confidences themselves. Confidences are compared as IEEE doubles: the CLI prints the
-shortest decimal that reads back as the same f64 and serde_json does the same, so equal strings
-are not needed, equal floats are. A word left without a confidence (its Matrix-Tree column could
+and compute confidences themselves. Over gRPC, confidences are compared as IEEE doubles: the CLI
+prints the shortest decimal that reads back as the same f64, so equal strings are not needed,
+equal floats are. The JSON reply rounds confidences to 6 decimals, so over HTTP the CLI's value
+is rounded the same way (correctly rounded decimal, as Python's format does) before comparing. A word left without a confidence (its Matrix-Tree column could
 not be computed within the effort bound) must be left out on both sides.
 
 Usage: check_pipeline_identity.py BINARY MODEL_DIR GOLD_CONLLU WORK_DIR
@@ -91,11 +92,13 @@ def main():
                     (sentence,) = result.sentences
                     grpc_got.append([(t.tag, t.head, t.label, t.confidence if t.HasField("confidence") else None)
                                      for t in sentence.tokens])
-            for api, got in (("HTTP", http_got), ("gRPC", grpc_got)):
-                differing = [i for i, (a, b) in enumerate(zip(expected, got)) if a != b]
-                if len(got) != len(expected) or differing:
+            rounded = [[(tag, head, label, None if p is None else float(f"{p:.6f}"))
+                        for tag, head, label, p in sentence] for sentence in expected]
+            for api, got, want in (("HTTP", http_got, rounded), ("gRPC", grpc_got, expected)):
+                differing = [i for i, (a, b) in enumerate(zip(want, got)) if a != b]
+                if len(got) != len(want) or differing:
                     first = differing[0] if differing else None
-                    detail = "" if first is None else f"; first at sentence {first}: library {expected[first][:3]} service {got[first][:3]}"
+                    detail = "" if first is None else f"; first at sentence {first}: library {want[first]} service {got[first]}"
                     failures.append(f"{decoder} over {api}: {len(differing)} of {len(expected)} sentences differ{detail}")
             tokens = sum(len(s) for s in expected)
             missing = sum(1 for s in expected for t in s if t[3] is None)

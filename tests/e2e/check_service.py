@@ -169,6 +169,12 @@ def main():
             checks.expect(False, "wrong admin token accepted")
         except grpc.RpcError as e:
             checks.expect(e.code() == grpc.StatusCode.UNAUTHENTICATED, f"admin: {e.code()}")
+        try:
+            admin.ActivateModel(pb.ActivateModelRequest(name="turkish", version=first))
+            checks.expect(False, "ActivateModel without a token accepted")
+        except grpc.RpcError as e:
+            checks.expect(e.code() == grpc.StatusCode.UNAUTHENTICATED, f"admin without token: {e.code()}")
+        # The contract in proto/: reading the model list is open, like GET /v1/models.
         listed = admin.ListModels(pb.ListModelsRequest())
         checks.expect({m.name for m in listed.models} == {"turkish"}, f"ListModels {listed}")
         health = health_pb2_grpc.HealthStub(channel).Check(health_pb2.HealthCheckRequest(service=""))

@@ -13,6 +13,8 @@ pub enum Kind {
     /// Admin routes are off (no admin token configured).
     PermissionDenied,
     PayloadTooLarge,
+    /// An HTTP route called with a method it does not take.
+    MethodNotAllowed,
     /// Load shedding: too many requests in flight.
     ResourceExhausted,
     DeadlineExceeded,
@@ -58,6 +60,8 @@ pub enum ErrorCode {
     LoadFailed,
     /// The body is not valid JSON of the expected shape.
     MalformedJson,
+    /// The route exists, but not for this HTTP method.
+    MethodNotAllowed,
     /// A sentence with neither text nor tokens.
     NoInput,
     /// No model is loaded yet.
@@ -115,6 +119,7 @@ impl ErrorCode {
             ErrorCode::NoInput => "no_input",
             ErrorCode::NoModel => "no_model",
             ErrorCode::NoRoute => "no_route",
+            ErrorCode::MethodNotAllowed => "method_not_allowed",
             ErrorCode::NotReady => "not_ready",
             ErrorCode::Overloaded => "overloaded",
             ErrorCode::SentenceTooLong => "sentence_too_long",
@@ -158,6 +163,7 @@ impl ErrorCode {
                 Kind::NotFound
             }
             ErrorCode::BodyTooLarge => Kind::PayloadTooLarge,
+            ErrorCode::MethodNotAllowed => Kind::MethodNotAllowed,
             ErrorCode::AdminDisabled => Kind::PermissionDenied,
             ErrorCode::Overloaded => Kind::ResourceExhausted,
             ErrorCode::Unauthenticated => Kind::Unauthenticated,
@@ -200,6 +206,7 @@ impl ApiError {
             Kind::Unauthenticated => StatusCode::UNAUTHORIZED,
             Kind::PermissionDenied => StatusCode::FORBIDDEN,
             Kind::PayloadTooLarge => StatusCode::PAYLOAD_TOO_LARGE,
+            Kind::MethodNotAllowed => StatusCode::METHOD_NOT_ALLOWED,
             Kind::ResourceExhausted => StatusCode::TOO_MANY_REQUESTS,
             Kind::DeadlineExceeded => StatusCode::GATEWAY_TIMEOUT,
             Kind::Unavailable => StatusCode::SERVICE_UNAVAILABLE,
@@ -211,6 +218,7 @@ impl ApiError {
         match self.kind() {
             Kind::InvalidArgument | Kind::PayloadTooLarge => tonic::Code::InvalidArgument,
             Kind::NotFound => tonic::Code::NotFound,
+            Kind::MethodNotAllowed => tonic::Code::Unimplemented,
             Kind::Unauthenticated => tonic::Code::Unauthenticated,
             Kind::PermissionDenied => tonic::Code::PermissionDenied,
             Kind::ResourceExhausted => tonic::Code::ResourceExhausted,

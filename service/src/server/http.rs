@@ -184,6 +184,17 @@ pub fn router(state: Arc<AppState>) -> Router {
         .fallback(|| async {
             ApiError::new(ErrorCode::NoRoute, "no such route; see /v1/openapi.json")
         })
+        // A known route called with a method it does not take: the JSON error body, with the
+        // `Allow` header the router adds.
+        .method_not_allowed_fallback(|method: axum::http::Method| async move {
+            ApiError::new(
+                ErrorCode::MethodNotAllowed,
+                format!(
+                    "this route does not take {method} (the Allow header lists the methods it \
+                     takes); see /v1/openapi.json"
+                ),
+            )
+        })
         .layer(middleware::from_fn(request_id))
         .with_state(state)
 }

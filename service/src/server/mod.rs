@@ -259,7 +259,7 @@ pub async fn run(config: config::Config) -> Result<(), StartupError> {
     };
     let (http_listener, http_addr) = bind("HTTP", config.http).await?;
     let (grpc_listener, grpc_addr) = bind("gRPC", config.grpc).await?;
-    tracing::info!(%http_addr, %grpc_addr, store = %config.store, threads = config.threads, "listening");
+    tracing::info!(%http_addr, %grpc_addr, console = %format!("http://{http_addr}/ui"), store = %config.store, threads = config.threads, "listening");
     eprintln!(
         "arcwright is serving: HTTP on http://{http_addr}, gRPC on {grpc_addr}\n  try: curl -s http://{http_addr}/v1/parse -d '{{\"text\": \"The crane operator moved a blue container.\"}}'\n  gRPC: arcwright query --grpc {grpc_addr} \"The pilot signed the manifest.\"\n  console: http://{http_addr}/ui"
     );

@@ -47,9 +47,28 @@ pub struct TokenOut {
     pub label: String,
     /// P(head → word) under the model's tree distribution, when asked for (left out for a word
     /// whose marginals could not be computed accurately within the effort bound).
-    #[serde(skip_serializing_if = "Option::is_none")]
+    /// In JSON rounded to 6 decimals (gRPC carries the full double).
+    #[serde(
+        skip_serializing_if = "Option::is_none",
+        serialize_with = "six_decimals"
+    )]
     #[schema(minimum = 0.0, maximum = 1.0)]
     pub confidence: Option<f64>,
+}
+
+/// Rounds to 6 decimals through the correctly rounded decimal rendering, so the JSON shows
+/// `0.981234` rather than seventeen digits whose tail means nothing to a reader.
+fn six_decimals<S: serde::Serializer>(
+    value: &Option<f64>,
+    serializer: S,
+) -> Result<S::Ok, S::Error> {
+    match value {
+        Some(p) => {
+            let rounded: f64 = format!("{p:.6}").parse().unwrap_or(*p);
+            serializer.serialize_f64(rounded)
+        }
+        None => serializer.serialize_none(),
+    }
 }
 
 /// Results per input, each a list of sentences of tokens, in input order.

@@ -42,6 +42,8 @@ pub fn routes<S: Clone + Send + Sync + 'static>() -> Router<S> {
             get(|| async { asset("text/html; charset=utf-8", INDEX) }),
         )
         .route("/ui/", get(|| async { Redirect::permanent("/ui") }))
+        // A person who opens the service's address in a browser lands on the console.
+        .route("/", get(|| async { Redirect::temporary("/ui") }))
         .route(
             "/ui/console.css",
             get(|| async { asset("text/css; charset=utf-8", STYLE) }),
