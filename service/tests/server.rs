@@ -408,3 +408,96 @@ async fn console_is_served_with_a_same_origin_only_policy() {
         );
     }
 }
+
+/// The sentences the README and the console show, as the demo model parses them: tags, heads
+/// and labels written out by hand for each (the demo data's own annotation scheme), decoded
+/// with the demo model's default decoder, which is projective because the demo data is.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn the_shown_sentences_parse_sensibly_with_the_demo_model() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    let state = server::build_state(&config(
+        &tmp.path().join("store"),
+        &tmp.path().join("cache"),
+        Duration::from_secs(10),
+    ))
+    .await
+    .expect("state");
+    let (status, models) = call(&state, "GET", "/v1/models", Vec::new(), None).await;
+    assert_eq!(status, StatusCode::OK);
+    assert_eq!(
+        models["models"][0]["serving"]["default_decoder"], "projective",
+        "{models}"
+    );
+    // (form, tag, head, label) per word.
+    let shown: [&[(&str, &str, u64, &str)]; 4] = [
+        &[
+            ("The", "DET", 3, "det"),
+            ("crane", "NOUN", 3, "compound"),
+            ("operator", "NOUN", 4, "nsubj"),
+            ("moved", "VERB", 0, "root"),
+            ("a", "DET", 7, "det"),
+            ("blue", "ADJ", 7, "amod"),
+            ("container", "NOUN", 4, "obj"),
+            (".", "PUNCT", 4, "punct"),
+        ],
+        &[
+            ("A", "DET", 2, "det"),
+            ("tug", "NOUN", 3, "nsubj"),
+            ("moved", "VERB", 0, "root"),
+            (".", "PUNCT", 3, "punct"),
+        ],
+        &[
+            ("The", "DET", 2, "det"),
+            ("pilot", "NOUN", 3, "nsubj"),
+            ("signed", "VERB", 0, "root"),
+            ("the", "DET", 5, "det"),
+            ("manifest", "NOUN", 3, "obj"),
+            (".", "PUNCT", 3, "punct"),
+        ],
+        &[
+            ("The", "DET", 3, "det"),
+            ("crane", "NOUN", 3, "compound"),
+            ("operator", "NOUN", 4, "nsubj"),
+            ("moved", "VERB", 0, "root"),
+            ("the", "DET", 7, "det"),
+            ("blue", "ADJ", 7, "amod"),
+            ("container", "NOUN", 4, "obj"),
+            ("to", "ADP", 10, "case"),
+            ("the", "DET", 10, "det"),
+            ("quay", "NOUN", 4, "obl"),
+            ("before", "ADP", 13, "case"),
+            ("the", "DET", 13, "det"),
+            ("storm", "NOUN", 4, "obl"),
+            (".", "PUNCT", 4, "punct"),
+        ],
+    ];
+    for expected in shown {
+        let text = expected
+            .iter()
+            .map(|w| w.0)
+            .collect::<Vec<_>>()
+            .join(" ")
+            .replace(" .", ".");
+        let body = serde_json::json!({ "text": text }).to_string().into_bytes();
+        let (status, json) = call(&state, "POST", "/v1/parse", body, None).await;
+        assert_eq!(status, StatusCode::OK, "{json}");
+        let got: Vec<(String, String, u64, String)> = json["sentences"][0]["tokens"]
+            .as_array()
+            .expect("tokens")
+            .iter()
+            .map(|t| {
+                (
+                    t["form"].as_str().unwrap_or_default().to_string(),
+                    t["tag"].as_str().unwrap_or_default().to_string(),
+                    t["head"].as_u64().unwrap_or(u64::MAX),
+                    t["label"].as_str().unwrap_or_default().to_string(),
+                )
+            })
+            .collect();
+        let want: Vec<(String, String, u64, String)> = expected
+            .iter()
+            .map(|&(f, t, h, l)| (f.to_string(), t.to_string(), h, l.to_string()))
+            .collect();
+        assert_eq!(got, want, "{text}");
+    }
+}
