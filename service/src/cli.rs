@@ -19,23 +19,42 @@ pub struct Cli {
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Decode the best tree of a JSON arc-score matrix read from stdin.
+    #[command(
+        after_help = "Example:\n  echo '{\"scores\": [[0, 0, 0], [5, 0, 1], [1, 4, 0]]}' | arcwright decode --decoder non-projective --marginals"
+    )]
     Decode(DecodeOptions),
     /// Check, inspect, split or rewrite CoNLL-U files.
     Conllu(ConlluOptions),
     /// Train a tagger and a labeled parser from CoNLL-U; write a model directory.
+    #[command(
+        after_help = "Example:\n  arcwright train --train split/train.conllu --dev split/dev.conllu --out my-model --epochs 8"
+    )]
     Train(TrainOptions),
     /// Evaluate a model on a gold CoNLL-U file (JSON on stdout, a table on stderr).
+    #[command(
+        after_help = "Example:\n  arcwright eval --model my-model --gold split/test.conllu --exclude-label punct > scores.json"
+    )]
     Eval(EvalOptions),
     /// Parse stdin (CoNLL-U or text) to CoNLL-U on stdout.
+    #[command(
+        after_help = "Example:\n  echo \"The pilot signed the manifest.\" | arcwright parse --model my-model --input text"
+    )]
     Parse(ParseOptions),
     /// Write demo sentences with gold trees (an invented harbour-crew scenario) as CoNLL-U.
+    #[command(
+        after_help = "Example:\n  arcwright demo-data --sentences 500 --seed 7 > demo.conllu"
+    )]
     DemoData(DemoDataOptions),
     /// Publish, list, promote, roll back, verify, fetch and prune model versions.
     Store(StoreOptions),
     /// Serve every live model of a store over gRPC and HTTP/JSON, following model changes.
+    #[command(
+        after_help = "Example:\n  arcwright serve --store ./arcwright-store --http 127.0.0.1:8080 --grpc 127.0.0.1:50051"
+    )]
     Serve(crate::server::config::ServeArgs),
     /// Ask a running service whether it is serving (grpc.health.v1); exit 0 if so, 1 if not.
     /// For container health checks, where the runtime image has no other client.
+    #[command(after_help = "Example:\n  arcwright health --grpc 127.0.0.1:50051 --timeout 2")]
     Health(HealthOptions),
     /// Parse text with a running service over gRPC (the client generated from proto/); prints
     /// CoNLL-U, or the reply as JSON with --json.
@@ -94,6 +113,9 @@ pub struct StoreOptions {
 #[derive(Debug, Subcommand)]
 pub enum StoreAction {
     /// Publish a model directory as a new version; prints the version id.
+    #[command(
+        after_help = "Example:\n  arcwright store publish --store ./arcwright-store --name harbour my-model --scores scores.json"
+    )]
     Publish {
         /// Model name.
         #[arg(long)]
@@ -105,6 +127,9 @@ pub enum StoreAction {
         scores: Option<PathBuf>,
     },
     /// List models, or one model's versions with sizes, scores and aliases.
+    #[command(
+        after_help = "Example:\n  arcwright store list --store ./arcwright-store --name harbour"
+    )]
     List {
         /// One model\'s versions (default: every model).
         #[arg(long)]
@@ -114,6 +139,9 @@ pub enum StoreAction {
         json: bool,
     },
     /// Point an alias (default `live`) at a version, after verifying it.
+    #[command(
+        after_help = "Example:\n  arcwright store promote --store ./arcwright-store --name harbour --version 20261203T101500.123456Z-3f2a9c1d"
+    )]
     Promote {
         /// Model name.
         #[arg(long)]
@@ -126,6 +154,9 @@ pub enum StoreAction {
         alias: String,
     },
     /// Move an alias (default `live`) back to its previous target.
+    #[command(
+        after_help = "Example:\n  arcwright store rollback --store ./arcwright-store --name harbour"
+    )]
     Rollback {
         /// Model name.
         #[arg(long)]
@@ -135,6 +166,9 @@ pub enum StoreAction {
         alias: String,
     },
     /// Re-check the checksums of one version, or of every version of a model.
+    #[command(
+        after_help = "Example:\n  arcwright store verify --store s3://models/arcwright --name harbour"
+    )]
     Verify {
         /// Model name.
         #[arg(long)]
@@ -144,6 +178,9 @@ pub enum StoreAction {
         version: Option<String>,
     },
     /// Download and verify a version (default: the `live` one) into a local directory.
+    #[command(
+        after_help = "Example:\n  arcwright store fetch --store s3://models/arcwright --name harbour --cache /var/cache/arcwright"
+    )]
     Fetch {
         /// Model name.
         #[arg(long)]
@@ -156,6 +193,9 @@ pub enum StoreAction {
         cache: PathBuf,
     },
     /// Follow an alias and print each new target as it appears (the service's change feed).
+    #[command(
+        after_help = "Example:\n  arcwright store watch --store ./arcwright-store --name harbour --count 1"
+    )]
     Watch {
         /// Model name.
         #[arg(long)]
@@ -171,6 +211,9 @@ pub enum StoreAction {
         count: Option<usize>,
     },
     /// Delete all but the newest N versions, never one an alias points at.
+    #[command(
+        after_help = "Example:\n  arcwright store prune --store ./arcwright-store --name harbour --keep 5 --yes"
+    )]
     Prune {
         /// Model name.
         #[arg(long)]
@@ -195,6 +238,7 @@ pub struct DemoDataOptions {
     /// Longest sentence of the mix.
     #[arg(long, default_value_t = 120)]
     pub max_words: usize,
+    /// Seed of the sentence generator; the same seed gives the same sentences.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
 }
@@ -276,18 +320,19 @@ pub enum InputFormat {
 
 #[derive(Debug, Args)]
 pub struct ParseOptions {
-    /// Model directory (as written by `arcwright train`).
-    #[arg(long, required_unless_present = "store", conflicts_with = "store")]
+    /// Model directory (as written by `arcwright train`). Takes precedence over a store given
+    /// by ARCWRIGHT_STORE.
+    #[arg(long)]
     pub model: Option<PathBuf>,
     /// Take the model from a store instead (a path, file:///abs/path or s3://bucket/prefix):
     /// the version that alias `live` of `--name` points at, or `--version`.
-    #[arg(long, requires = "name")]
+    #[arg(long, env = "ARCWRIGHT_STORE")]
     pub store: Option<String>,
     /// Model name in the store.
-    #[arg(long, requires = "store")]
+    #[arg(long)]
     pub name: Option<String>,
     /// A version id instead of the `live` alias.
-    #[arg(long, requires = "store")]
+    #[arg(long)]
     pub version: Option<String>,
     /// Where models taken from a store are kept after verification.
     #[arg(long, default_value = ".cache/models")]
@@ -299,6 +344,7 @@ pub struct ParseOptions {
     /// figure the service's `confidence` option returns).
     #[arg(long)]
     pub confidence: bool,
+    /// What stdin (or each listed file) holds.
     #[arg(long, value_enum, default_value = "conllu")]
     pub input: InputFormat,
     /// Parse the files listed in this file (a path or URL; one input path or URL per line,
@@ -375,6 +421,7 @@ pub struct ConlluOptions {
 #[derive(Debug, Subcommand)]
 pub enum ConlluAction {
     /// Check files; print every problem with file, line and column. Exit 2 if any.
+    #[command(after_help = "Example:\n  arcwright conllu check train.conllu dev.conllu")]
     Check {
         /// CoNLL-U files to check.
         #[arg(required = true)]
@@ -384,11 +431,22 @@ pub enum ConlluAction {
         lenient: bool,
     },
     /// Print the basic words of a file as JSON lines, one sentence per line.
-    Fields { file: PathBuf },
+    #[command(after_help = "Example:\n  arcwright conllu fields test.conllu | head -3")]
+    Fields {
+        /// The CoNLL-U file to read.
+        file: PathBuf,
+    },
     /// Read a file and write it back to stdout (byte-identical for a valid file).
-    Rewrite { file: PathBuf },
+    #[command(after_help = "Example:\n  arcwright conllu rewrite mine.conllu | cmp - mine.conllu")]
+    Rewrite {
+        /// The CoNLL-U file to read.
+        file: PathBuf,
+    },
     /// Split files into train/dev/test by sentence index modulo 10 (0 → test, 1 → dev, rest →
     /// train), counting sentences across the files in the order given.
+    #[command(
+        after_help = "Example:\n  arcwright conllu split part1.conllu part2.conllu --out split"
+    )]
     Split {
         /// CoNLL-U files, counted as one sequence of sentences in the order given.
         #[arg(required = true)]
@@ -397,4 +455,46 @@ pub enum ConlluAction {
         #[arg(long)]
         out: PathBuf,
     },
+}
+
+#[cfg(test)]
+mod tests {
+    use clap::CommandFactory;
+
+    /// Every option and argument has help text, and every command a user runs ends its
+    /// `--help` with an example.
+    fn check(command: &clap::Command, path: &str, missing: &mut Vec<String>) {
+        for arg in command.get_arguments() {
+            let id = arg.get_id().as_str();
+            if id == "help" || id == "version" {
+                continue;
+            }
+            if arg.get_help().is_none() && arg.get_long_help().is_none() {
+                missing.push(format!("{path} {id}: no help"));
+            }
+        }
+        let subcommands: Vec<&clap::Command> = command
+            .get_subcommands()
+            .filter(|c| c.get_name() != "help")
+            .collect();
+        if subcommands.is_empty() {
+            let example = command
+                .get_after_help()
+                .map(|h| h.to_string())
+                .is_some_and(|h| h.starts_with("Example:\n  ") && h.contains("arcwright "));
+            if !example {
+                missing.push(format!("{path}: no example"));
+            }
+        }
+        for sub in subcommands {
+            check(sub, &format!("{path} {}", sub.get_name()), missing);
+        }
+    }
+
+    #[test]
+    fn every_option_has_help_and_every_command_an_example() {
+        let mut missing = Vec::new();
+        check(&super::Cli::command(), "arcwright", &mut missing);
+        assert!(missing.is_empty(), "{missing:#?}");
+    }
 }

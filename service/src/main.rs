@@ -26,10 +26,24 @@ fn end_quietly_on_closed_pipe() {
 
 fn main() -> ExitCode {
     let matches = <cli::Cli as clap::CommandFactory>::command().get_matches();
-    let args = match <cli::Cli as clap::FromArgMatches>::from_arg_matches(&matches) {
+    let mut args = match <cli::Cli as clap::FromArgMatches>::from_arg_matches(&matches) {
         Ok(args) => args,
         Err(e) => e.exit(),
     };
+    // `parse --model DIR` wins over a store that only the environment names; both on the
+    // command line is a contradiction.
+    if let (cli::Command::Parse(options), Some(parse)) =
+        (&mut args.command, matches.subcommand_matches("parse"))
+        && options.model.is_some()
+        && options.store.is_some()
+    {
+        if parse.value_source("store") == Some(clap::parser::ValueSource::EnvVariable) {
+            options.store = None;
+        } else {
+            eprintln!("arcwright: give --model DIR or --store URL --name NAME, not both");
+            return ExitCode::from(2);
+        }
+    }
     #[cfg(unix)]
     if !matches!(args.command, cli::Command::Serve(_)) {
         end_quietly_on_closed_pipe();

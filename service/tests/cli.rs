@@ -25,6 +25,27 @@ fn run(args: &[&str], stdin: &[u8]) -> (i32, String, String) {
     )
 }
 
+/// `run` with extra environment variables.
+fn run_with_env(args: &[&str], env: &[(&str, &str)], stdin: &[u8]) -> (i32, String, String) {
+    let mut child = Command::new(env!("CARGO_BIN_EXE_arcwright"))
+        .args(args)
+        .envs(env.iter().copied())
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("binary starts");
+    if let Err(e) = child.stdin.take().expect("stdin").write_all(stdin) {
+        assert_eq!(e.kind(), std::io::ErrorKind::BrokenPipe, "write stdin: {e}");
+    }
+    let out = child.wait_with_output().expect("binary finishes");
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into_owned(),
+        String::from_utf8_lossy(&out.stderr).into_owned(),
+    )
+}
+
 /// Malformed input: exit 2 and a message naming the problem.
 fn check_rejected(stdin: &str, args: &[&str], expected: &str) {
     let mut all = vec!["decode"];
@@ -337,6 +358,75 @@ fn a_model_from_demo_data_through_the_commands() {
         stdout.lines().filter(|l| l.starts_with("deleted")).count(),
         2
     );
+
+    // ARCWRIGHT_STORE names the store for `parse` too; --model still wins over it, and both
+    // on the command line is refused.
+    let (code, stdout, stderr) = run(
+        &[
+            "store",
+            "publish",
+            "--store",
+            &store,
+            "--name",
+            "m",
+            &path("m"),
+        ],
+        b"",
+    );
+    assert_eq!(code, 0, "{stderr}");
+    let version = stdout.trim().to_string();
+    let (code, _, stderr) = run(
+        &[
+            "store",
+            "promote",
+            "--store",
+            &store,
+            "--name",
+            "m",
+            "--version",
+            &version,
+        ],
+        b"",
+    );
+    assert_eq!(code, 0, "{stderr}");
+    let env = [("ARCWRIGHT_STORE", store.as_str())];
+    let sentence = b"The pilot signed the manifest.\n";
+    let (code, from_store, stderr) = run_with_env(
+        &[
+            "parse",
+            "--name",
+            "m",
+            "--input",
+            "text",
+            "--cache",
+            &path("cache"),
+        ],
+        &env,
+        sentence,
+    );
+    assert_eq!(code, 0, "{stderr}");
+    assert!(from_store.contains("\tmanifest\t"), "{from_store}");
+    let (code, from_dir, stderr) = run_with_env(
+        &["parse", "--model", &path("m"), "--input", "text"],
+        &env,
+        sentence,
+    );
+    assert_eq!(code, 0, "{stderr}");
+    assert_eq!(from_dir, from_store, "the same model either way");
+    let (code, _, stderr) = run(
+        &[
+            "parse",
+            "--model",
+            &path("m"),
+            "--store",
+            &store,
+            "--name",
+            "m",
+        ],
+        sentence,
+    );
+    assert_eq!(code, 2, "{stderr}");
+    assert!(stderr.contains("not both"), "{stderr}");
 
     // The settings check prints a settings file that reads back, and never the token.
     std::fs::write(dir.join("token"), "a-token-of-more-than-16-characters").expect("write");

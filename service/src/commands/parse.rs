@@ -79,12 +79,22 @@ async fn load_model(options: &ParseOptions) -> Result<(Model, String), Failure> 
                 .map_err(store_failure)?;
             (dir, format!("{name}@{version}"))
         }
-        _ => {
+        (None, Some(url), None) => {
+            return Err(Failure::bad_input(format!(
+                "the store {url} needs --name NAME: which model of the store to parse with"
+            )));
+        }
+        (None, None, _) => {
             return Err(Failure::bad_input(
-                "give --model DIR or --store URL --name NAME",
+                "give --model DIR, or --store URL (or ARCWRIGHT_STORE) with --name NAME",
             ));
         }
     };
+    if options.model.is_some() && (options.name.is_some() || options.version.is_some()) {
+        return Err(Failure::bad_input(
+            "--name and --version choose a model in a store; with --model DIR give neither",
+        ));
+    }
     let model = Model::load(&dir).map_err(Failure::bad_input)?;
     Ok((model, id))
 }
