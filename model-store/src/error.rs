@@ -38,7 +38,7 @@ pub enum StoreError {
         path: String,
         source: std::io::Error,
     },
-    #[error("store {operation} failed for {key}: {source}")]
+    #[error("store {operation} failed for {key}: {source}{}", credential_hint(.source))]
     Backend {
         operation: &'static str,
         key: String,
@@ -48,6 +48,26 @@ pub enum StoreError {
     Conflict { name: String, alias: String },
     #[error("{0}")]
     Invalid(String),
+}
+
+/// Without credentials in the environment, the S3 client asks the cloud instance-metadata
+/// service for some, and its failure (a metadata URL, a 403 or a refused connection) says
+/// nothing about the cause. Name the cause and the variables that fix it.
+fn credential_hint(source: &object_store::Error) -> String {
+    let text = source.to_string();
+    let asked_metadata = ["/latest/api/token", "/latest/meta-data", "169.254.169.254"]
+        .iter()
+        .any(|marker| text.contains(marker));
+    let has_keys = std::env::var_os("AWS_ACCESS_KEY_ID").is_some();
+    if !asked_metadata || has_keys {
+        return String::new();
+    }
+    "\n  no S3 credentials were found in the environment, so the client asked the cloud \
+     instance-metadata service (which only a cloud machine has).\n  set AWS_ACCESS_KEY_ID and \
+     AWS_SECRET_ACCESS_KEY (plus AWS_SESSION_TOKEN for temporary keys), or \
+     AWS_WEB_IDENTITY_TOKEN_FILE with AWS_ROLE_ARN; for an S3-compatible store also \
+     AWS_ENDPOINT_URL (its address) and AWS_REGION."
+        .to_string()
 }
 
 pub(crate) fn backend(
@@ -66,4 +86,44 @@ pub(crate) fn backend(
 pub(crate) fn io(path: &FsPath) -> impl FnOnce(std::io::Error) -> StoreError {
     let path = path.display().to_string();
     move |source| StoreError::Io { path, source }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn generic(message: &str) -> object_store::Error {
+        object_store::Error::Generic {
+            store: "S3",
+            source: message.to_string().into(),
+        }
+    }
+
+    #[test]
+    fn a_failed_metadata_call_names_the_missing_credentials() {
+        // The process's own environment decides; the test suite runs without AWS keys.
+        if std::env::var_os("AWS_ACCESS_KEY_ID").is_some() {
+            return;
+        }
+        let error = StoreError::Backend {
+            operation: "list",
+            key: "models".to_string(),
+            source: generic(
+                "Error performing PUT http://169.254.169.254/latest/api/token in 1s - 403",
+            ),
+        };
+        let message = error.to_string();
+        assert!(
+            message.contains("no S3 credentials were found")
+                && message.contains("AWS_ACCESS_KEY_ID")
+                && message.contains("AWS_ENDPOINT_URL"),
+            "{message}"
+        );
+        let other = StoreError::Backend {
+            operation: "get",
+            key: "models/a".to_string(),
+            source: generic("connection refused"),
+        };
+        assert!(!other.to_string().contains("credentials"));
+    }
 }
