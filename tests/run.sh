@@ -176,6 +176,8 @@ define conllu-check "install build" "arcwright conllu check on the Turkish treeb
     "$BIN" conllu check "$TREEBANK/web.conllu" "$TREEBANK/wiki.conllu"
 define turkish "install build" "train and evaluate on the Turkish treebank (floors, crossing arcs, reproducibility)" \
     python3 tests/oracles/check_turkish_training.py "$BIN" "$TREEBANK" "$TURKISH" 8
+define sentence-split "install build model" "sentence boundaries of raw text against the Turkish test split (conllu package), with and without learned abbreviations" \
+    python3 tests/oracles/check_sentence_split.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/sentence-split"
 define pipeline-identity "install build model" "service replies equal the library's, bit for bit (Turkish test split, HTTP and gRPC)" \
     python3 tests/e2e/check_pipeline_identity.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/identity"
 define store "install build model" "model store on local disk and on an S3-compatible server (moto on 127.0.0.1)" \

@@ -11,6 +11,7 @@ use crate::features::FeatureConfig;
 use crate::pipeline::{self, ParseOptions, Parsed, StageObserver, Unobserved};
 use crate::scorer::{ArcScorer, LinearScorer};
 use crate::tagger::Tagger;
+use crate::tokenize::Abbreviations;
 
 pub const FORMAT: &str = "arcwright-model/1";
 
@@ -24,6 +25,8 @@ pub struct Model {
     pub morph_tagger: Option<Tagger>,
     /// Decoder matching the training data (non-projective when it has crossing arcs).
     pub default_decoder: Algorithm,
+    /// Tokens ending in a full stop that do not end a sentence, for splitting raw text.
+    pub abbreviations: Abbreviations,
     /// Free-form facts about the training run (data fingerprint, epochs, scores).
     pub training: serde_json::Value,
 }
@@ -64,6 +67,9 @@ struct Description {
     tagger_bits: u32,
     morph_tags: Option<Vec<String>>,
     default_decoder: String,
+    /// Absent in models written before abbreviations were learned: none.
+    #[serde(default)]
+    abbreviations: Vec<String>,
     training: serde_json::Value,
 }
 
@@ -171,6 +177,7 @@ impl Model {
             tagger_bits: self.tagger.bits,
             morph_tags: self.morph_tagger.as_ref().map(|t| t.tags.clone()),
             default_decoder: self.default_decoder.name().to_string(),
+            abbreviations: self.abbreviations.to_list(),
             training: self.training.clone(),
         };
         let json = serde_json::to_string_pretty(&description).map_err(|e| ModelError::Format {
@@ -233,6 +240,7 @@ impl Model {
             tagger,
             morph_tagger,
             default_decoder,
+            abbreviations: Abbreviations::from_list(d.abbreviations),
             training: d.training,
         })
     }

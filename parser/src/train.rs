@@ -20,6 +20,7 @@ use crate::perceptron::{self, Trainee, weight_table, weight_table_from};
 use crate::scorer::{ArcScorer, LinearScorer};
 use crate::tagger::Tagger;
 use crate::text;
+use crate::tokenize::Abbreviations;
 
 /// One training sentence.
 #[derive(Debug, Clone)]
@@ -195,6 +196,7 @@ pub fn train(
         tagger,
         morph_tagger,
         default_decoder: decoder,
+        abbreviations: Abbreviations::learn(train.iter().map(|e| e.forms.as_slice())),
         training: serde_json::Value::Null,
     };
     let label_index = |label: &str| {

@@ -15,10 +15,10 @@ use std::io::{Read, Write};
 use std::path::PathBuf;
 use std::time::Instant;
 
-use arcwright_parser::conllu::{self, Sentence};
+use arcwright_parser::conllu::{self, Item, Sentence};
 use arcwright_parser::model::Model;
 use arcwright_parser::pipeline;
-use arcwright_parser::tokenize;
+use arcwright_parser::tokenize::{self, Abbreviations};
 use arcwright_store::{ObjectUrl, Store, StoreError, join_url};
 use rayon::prelude::*;
 
@@ -57,7 +57,8 @@ pub fn run(options: &ParseOptions) -> Result<(), Failure> {
             std::io::stdin()
                 .read_to_end(&mut input)
                 .map_err(|e| Failure::runtime(format!("stdin: {e}")))?;
-            let mut sentences = read_sentences("<stdin>", &input, options.input)?;
+            let mut sentences =
+                read_sentences("<stdin>", &input, options.input, &model.abbreviations)?;
             pool.install(|| parse_all(&model, &mut sentences, &parse_options));
             std::io::stdout()
                 .write_all(write_sentences(&sentences).as_bytes())
@@ -112,6 +113,7 @@ fn read_sentences(
     source: &str,
     bytes: &[u8],
     format: InputFormat,
+    abbreviations: &Abbreviations,
 ) -> Result<Vec<Sentence>, Failure> {
     let text = || {
         std::str::from_utf8(bytes)
@@ -133,14 +135,16 @@ fn read_sentences(
                 })?
                 .sentences
         }
-        InputFormat::Text => tokenize::sentences(text()?)
+        InputFormat::Text => tokenize::split(text()?, abbreviations)
             .into_iter()
-            .map(Sentence::from_forms)
+            .enumerate()
+            .map(|(i, s)| with_comments(Sentence::from_forms(s.tokens), i, &s.text))
             .collect(),
         InputFormat::Tokens => text()?
             .lines()
             .filter(|l| !l.trim().is_empty())
-            .map(|l| Sentence::from_forms(l.split_whitespace()))
+            .enumerate()
+            .map(|(i, l)| with_comments(Sentence::from_forms(l.split_whitespace()), i, l))
             .collect(),
     })
 }
@@ -169,6 +173,20 @@ fn parse_all(model: &Model, sentences: &mut [Sentence], options: &pipeline::Pars
             }
         }
     });
+}
+
+/// `# sent_id = N` (from 1, per input) and `# text = …` (white space runs as one space, so the
+/// comment stays on one line) before the words of a sentence read from text.
+fn with_comments(mut sentence: Sentence, index: usize, text: &str) -> Sentence {
+    let text = text.split_whitespace().collect::<Vec<_>>().join(" ");
+    sentence.items.splice(
+        0..0,
+        [
+            Item::Comment(format!("# sent_id = {}", index + 1)),
+            Item::Comment(format!("# text = {text}")),
+        ],
+    );
+    sentence
 }
 
 fn write_sentences(sentences: &[Sentence]) -> String {
@@ -262,7 +280,8 @@ async fn parse_files(
             }
             other => store_failure(other),
         })?;
-        let mut sentences = read_sentences(input.url(), &bytes, options.input)?;
+        let mut sentences =
+            read_sentences(input.url(), &bytes, options.input, &model.abbreviations)?;
         pool.install(|| parse_all(model, &mut sentences, parse_options));
         sentences_done += sentences.len();
         tokens_done += sentences.iter().map(|s| s.words().count()).sum::<usize>();

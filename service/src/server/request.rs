@@ -7,7 +7,7 @@ use std::time::{Duration, Instant};
 
 use arcwright_parser::decode::Algorithm;
 use arcwright_parser::pipeline::{self, ParseOptions, StageObserver};
-use arcwright_parser::tokenize;
+use arcwright_parser::tokenize::{self, Abbreviations};
 use tokio::sync::Semaphore;
 
 use super::config::Limits;
@@ -116,7 +116,11 @@ pub fn decoder_from_name(name: Option<&str>) -> Result<Option<Algorithm>, ApiErr
 impl Engine {
     /// Checks every input against the limits and splits it into sentences to parse (no model
     /// needed yet), taking the tokens over rather than copying them.
-    fn validate(&self, inputs: Vec<SentenceInput>) -> Result<Vec<Work>, ApiError> {
+    fn validate(
+        &self,
+        inputs: Vec<SentenceInput>,
+        abbreviations: &Abbreviations,
+    ) -> Result<Vec<Work>, ApiError> {
         let limits = &self.limits;
         let batch = inputs.len() > 1;
         if inputs.is_empty() {
@@ -164,7 +168,10 @@ impl Engine {
                             format!("text contains the control character {c:?}"),
                         ));
                     }
-                    let sentences = tokenize::sentences(&text);
+                    let sentences: Vec<Vec<String>> = tokenize::split(&text, abbreviations)
+                        .into_iter()
+                        .map(|s| s.tokens)
+                        .collect();
                     if sentences.is_empty() {
                         return Err(invalid(ErrorCode::EmptyText, "text has no words".into()));
                     }
@@ -313,7 +320,7 @@ impl Engine {
         let served: Arc<Served> = self.registry.snapshot(job.model.as_deref())?;
         let inputs = job.inputs.len();
         let tokenize_started = Instant::now();
-        let work = self.validate(job.inputs)?;
+        let work = self.validate(job.inputs, &served.model.abbreviations)?;
         // Each sentence's share of the request's checking and tokenizing, so that a batch's
         // sentences do not each report the whole batch's time.
         let tokenize_seconds = tokenize_started.elapsed().as_secs_f64() / work.len().max(1) as f64;
