@@ -180,6 +180,8 @@ define sentence-split "install build model" "sentence boundaries of raw text aga
     python3 tests/oracles/check_sentence_split.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/sentence-split"
 define pipeline-identity "install build model" "service replies equal the library's, bit for bit (Turkish test split, HTTP and gRPC)" \
     python3 tests/e2e/check_pipeline_identity.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/identity"
+define clients "install build model" "the Python and Rust clients against a real server: batches, retries on UNAVAILABLE and RESOURCE_EXHAUSTED, equal to arcwright parse" \
+    python3 tests/e2e/check_clients.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/clients"
 define store "install build model" "model store on local disk and on an S3-compatible server (moto on 127.0.0.1)" \
     python3 tests/e2e/check_store_s3.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/store"
 define service "install build model" "service end to end: Python gRPC stubs from proto/, HTTP, hot swap under load, SIGTERM" \

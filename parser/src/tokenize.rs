@@ -86,11 +86,17 @@ pub struct TextSentence {
     pub tokens: Vec<String>,
 }
 
+/// A stretch of text by byte offsets: a sentence being built, with its tokens' spans.
+struct Piece {
+    start: usize,
+    end: usize,
+    tokens: Vec<(usize, usize)>,
+}
+
 /// Splits text into sentences of non-blank tokens with the abbreviations' corrections; empty
 /// sentences are dropped.
 pub fn split(text: &str, abbreviations: &Abbreviations) -> Vec<TextSentence> {
-    // (start byte, end byte, tokens) per UAX #29 sentence, tokens as (start, end) byte spans.
-    let mut pieces: Vec<(usize, usize, Vec<(usize, usize)>)> = Vec::new();
+    let mut pieces: Vec<Piece> = Vec::new();
     for (start, piece) in text.split_sentence_bound_indices() {
         let mut tokens: Vec<(usize, usize)> = Vec::new();
         for (offset, token) in piece.split_word_bound_indices() {
@@ -112,21 +118,26 @@ pub fn split(text: &str, abbreviations: &Abbreviations) -> Vec<TextSentence> {
         if tokens.is_empty() {
             continue;
         }
-        let ends_in_abbreviation = |p: &(usize, usize, Vec<(usize, usize)>)| {
-            p.2.last()
+        let ends_in_abbreviation = |p: &Piece| {
+            p.tokens
+                .last()
                 .is_some_and(|&(b, e)| abbreviations.contains(&text[b..e]))
         };
         match pieces.last_mut() {
             Some(previous) if ends_in_abbreviation(previous) => {
-                previous.1 = start + piece.len();
-                previous.2.extend(tokens);
+                previous.end = start + piece.len();
+                previous.tokens.extend(tokens);
             }
-            _ => pieces.push((start, start + piece.len(), tokens)),
+            _ => pieces.push(Piece {
+                start,
+                end: start + piece.len(),
+                tokens,
+            }),
         }
     }
     pieces
         .into_iter()
-        .map(|(start, end, tokens)| TextSentence {
+        .map(|Piece { start, end, tokens }| TextSentence {
             text: text[start..end].trim().to_string(),
             tokens: tokens
                 .into_iter()
