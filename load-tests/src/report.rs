@@ -203,6 +203,12 @@ fn latency_by_length(out: &mut String, s: &Suite) {
             r.errors + other.map_or(0, |o| o.errors)
         );
     }
+    let _ = writeln!(
+        out,
+        "\n![Median latency against sentence length on log-log axes: the client's total per \
+         length and the server's stages per length bucket, with fitted slopes]\
+         (latency-by-length.svg)"
+    );
 }
 
 /// The server's own exponent fits from `/v1/scaling`.
@@ -251,6 +257,11 @@ fn step_up(out: &mut String, s: &Suite) {
         s.budget_ms,
         s.knee_rate
             .map_or("not reached".to_string(), |k| format!("{} req/s", fmt(k)))
+    );
+    let _ = writeln!(
+        out,
+        "\n![Achieved requests/s and p99 latency (log axis) against offered load, knee and \
+         budget marked](step-up.svg)"
     );
     for (name, runs) in &s.step_up_other {
         let _ = writeln!(
@@ -563,7 +574,7 @@ fn memory(out: &mut String, s: &Suite) {
 fn accounting(out: &mut String, s: &Suite) {
     let _ = writeln!(
         out,
-        "\n## Accounting\n\n```\n{}\n```\n\nPlots: `latency-by-length.svg`, `step-up.svg`.",
+        "\n## Accounting\n\n```\n{}\n```",
         serde_json::to_string_pretty(&s.accounting).unwrap_or_default()
     );
 }
@@ -664,58 +675,108 @@ pub fn plot_lengths(s: &Suite, path: &Path) -> anyhow::Result<()> {
     }
     chart
         .configure_series_labels()
-        .background_style(WHITE.mix(0.8))
+        .position(SeriesLabelPosition::UpperLeft)
+        .background_style(WHITE.mix(0.9))
         .border_style(BLACK)
         .draw()?;
     root.present()?;
     Ok(())
 }
 
-/// Throughput and p99 against offered load (step-up).
+/// Step-up in two panels over the same offered-load axis: achieved against offered requests/s
+/// (linear, with the offered = achieved diagonal), and p99 latency on its own logarithmic axis
+/// with the budget; the knee is marked in both. Legends sit in the upper left, which the data
+/// of a step-up (rising to the right) leaves empty.
 pub fn plot_step_up(s: &Suite, path: &Path) -> anyhow::Result<()> {
     if s.step_up.is_empty() {
         return Ok(());
     }
-    let root = SVGBackend::new(path, (800, 500)).into_drawing_area();
+    let root = SVGBackend::new(path, (800, 700)).into_drawing_area();
     root.fill(&WHITE)?;
+    let root = root.titled("step-up: gRPC Parse, 25-word sentences", ("sans-serif", 20))?;
+    let (upper, lower) = root.split_vertically(330);
     let xmax = s.step_up.iter().map(|r| r.offered_rate).fold(1.0, f64::max) * 1.1;
-    let ymax = s
-        .step_up
-        .iter()
-        .map(|r| r.latency.p99_ms.max(r.ok as f64 / r.seconds.max(1e-9)))
-        .fold(1.0, f64::max)
-        * 1.1;
-    let mut chart = ChartBuilder::on(&root)
-        .caption(
-            "throughput (req/s) and p99 (ms) against offered load",
-            ("sans-serif", 20),
-        )
-        .margin(15)
-        .x_label_area_size(40)
-        .y_label_area_size(60)
-        .build_cartesian_2d(0.0..xmax, 0.0..ymax)?;
-    chart.configure_mesh().x_desc("offered requests/s").draw()?;
     let throughput: Vec<(f64, f64)> = s
         .step_up
         .iter()
         .map(|r| (r.offered_rate, r.ok as f64 / r.seconds.max(1e-9)))
         .collect();
+    let ymax = throughput.iter().map(|p| p.1).fold(xmax, f64::max) * 1.05;
+    let mut top = ChartBuilder::on(&upper)
+        .margin(15)
+        .x_label_area_size(35)
+        .y_label_area_size(60)
+        .build_cartesian_2d(0.0..xmax, 0.0..ymax)?;
+    top.configure_mesh()
+        .x_desc("offered requests/s")
+        .y_desc("achieved requests/s")
+        .draw()?;
+    top.draw_series(LineSeries::new(
+        vec![(0.0, 0.0), (xmax, xmax)],
+        BLACK.mix(0.3).stroke_width(1),
+    ))?
+    .label("offered = achieved")
+    .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], BLACK.mix(0.3)));
+    top.draw_series(LineSeries::new(throughput.clone(), BLUE.stroke_width(2)))?
+        .label("achieved")
+        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], BLUE));
+    top.draw_series(throughput.iter().map(|p| Circle::new(*p, 3, BLUE.filled())))?;
     let p99: Vec<(f64, f64)> = s
         .step_up
         .iter()
+        .filter(|r| r.latency.p99_ms > 0.0)
         .map(|r| (r.offered_rate, r.latency.p99_ms))
         .collect();
-    chart
-        .draw_series(LineSeries::new(throughput, BLUE.stroke_width(2)))?
-        .label("achieved req/s")
-        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], BLUE));
-    chart
-        .draw_series(LineSeries::new(p99, RED.stroke_width(2)))?
-        .label("p99 ms")
+    let (lmin, lmax) = p99.iter().fold((s.budget_ms, s.budget_ms), |a, p| {
+        (a.0.min(p.1), a.1.max(p.1))
+    });
+    let mut bottom = ChartBuilder::on(&lower)
+        .margin(15)
+        .x_label_area_size(40)
+        .y_label_area_size(60)
+        .build_cartesian_2d(0.0..xmax, (lmin * 0.5..lmax * 2.0).log_scale())?;
+    bottom
+        .configure_mesh()
+        .x_desc("offered requests/s")
+        .y_desc("p99 ms (log)")
+        .draw()?;
+    bottom
+        .draw_series(LineSeries::new(
+            vec![(0.0, s.budget_ms), (xmax, s.budget_ms)],
+            RED.mix(0.4).stroke_width(1),
+        ))?
+        .label(format!("budget {} ms", fmt(s.budget_ms)))
+        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], RED.mix(0.4)));
+    bottom
+        .draw_series(LineSeries::new(p99.clone(), RED.stroke_width(2)))?
+        .label("p99 latency")
         .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], RED));
-    chart
+    bottom.draw_series(p99.iter().map(|p| Circle::new(*p, 3, RED.filled())))?;
+    if let Some(knee) = s.knee_rate {
+        let mark = BLACK.stroke_width(1);
+        top.draw_series(std::iter::once(PathElement::new(
+            vec![(knee, 0.0), (knee, ymax)],
+            mark,
+        )))?;
+        top.draw_series(std::iter::once(Text::new(
+            format!("knee {} req/s", fmt(knee)),
+            (knee, ymax * 0.08),
+            ("sans-serif", 14).into_font(),
+        )))?;
+        bottom.draw_series(std::iter::once(PathElement::new(
+            vec![(knee, lmin * 0.5), (knee, lmax * 2.0)],
+            mark,
+        )))?;
+    }
+    top.configure_series_labels()
+        .position(SeriesLabelPosition::UpperLeft)
+        .background_style(WHITE.mix(0.9))
+        .border_style(BLACK)
+        .draw()?;
+    bottom
         .configure_series_labels()
-        .background_style(WHITE.mix(0.8))
+        .position(SeriesLabelPosition::UpperLeft)
+        .background_style(WHITE.mix(0.9))
         .border_style(BLACK)
         .draw()?;
     root.present()?;
