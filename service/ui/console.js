@@ -73,10 +73,11 @@ function formatBytes(n) {
   return n + " B";
 }
 
+// One time format everywhere on the page: UTC, ISO 8601 to the second ("2026-12-03 09:55:58Z"),
+// the same clock as the store's publish times.
 function formatTime(ms) {
   if (!ms) return "";
-  const d = new Date(ms);
-  return d.toLocaleString(undefined, { hour12: false });
+  return new Date(ms).toISOString().replace("T", " ").replace(/\.\d+Z$/, "Z");
 }
 
 function formatSeconds(s) {
@@ -170,7 +171,7 @@ function renderModels() {
           "tr",
           { class: v.version === servingVersion ? "is-serving" : null },
           el("td", { class: "mono" }, v.version),
-          el("td", {}, v.created || ""),
+          el("td", {}, v.created ? formatTime(Date.parse(v.created)) : ""),
           el("td", { class: "num" }, formatBytes(v.size_bytes || 0)),
           el("td", {}, (v.aliases || []).join(", ")),
           el("td", {}, scores),
@@ -290,7 +291,7 @@ async function refreshScaling() {
   const reply = await api("/v1/scaling");
   if (!reply.ok) return;
   drawLatency(reply.body);
-  $("refresh-note").textContent = "updated " + new Date().toLocaleTimeString(undefined, { hour12: false });
+  $("refresh-note").textContent = "updated " + formatTime(Date.now());
 }
 
 function drawLatency(report) {
@@ -506,70 +507,123 @@ function textWidth(text, font) {
   return measureContext.measureText(text).width;
 }
 
+// The arc view ("hanging brackets"): words on a line with their tags under them, and every arc
+// hangs below as a bracket — down from its head, along its own row, up into its dependent. A
+// small filled square marks the head end, a ring the dependent end; the label sits in a box on
+// the bracket's row. Rows are assigned in order of span (shortest first): an arc takes the row
+// below every placed arc whose extent (bracket plus label box) overlaps its own, so two labels
+// never share a row where they could touch, and a longer arc always runs beneath the shorter
+// ones it encloses. A head's ports are spread over its word, farther dependents on the outside,
+// so nested brackets never cross. The root word carries a diamond above it. Arcs in a crossing
+// are drawn dashed in the crossing colour; in a comparison, arcs whose head differs between the
+// decoders are drawn in the comparison colour.
+const TREE = { wordY: 40, tagY: 56, baseY: 66, row: 22, gap: 22, labelHeight: 15 };
+
+function layoutArcs(tokens, xs, widths, labelWidth) {
+  const n = tokens.length;
+  // Ports: each head's dependents, farthest first on each side, spread over the word's width.
+  const port = new Array(n).fill(0);
+  for (let h = 1; h <= n; h++) {
+    const deps = [];
+    tokens.forEach((t, i) => { if (t.head === h) deps.push(i + 1); });
+    const left = deps.filter((d) => d < h).sort((a, b) => a - b);
+    const right = deps.filter((d) => d > h).sort((a, b) => b - a);
+    const half = widths[h - 1] / 2 - 2;
+    left.forEach((d, j) => { port[d - 1] = xs[h - 1] - half * (left.length - j) / (left.length + 1) - 2; });
+    right.forEach((d, j) => { port[d - 1] = xs[h - 1] + half * (right.length - j) / (right.length + 1) + 2; });
+  }
+  const arcs = tokens.map((t, i) => {
+    if (t.head === 0) return null;
+    const hx = port[i], dx = xs[i];
+    const left = Math.min(hx, dx), right = Math.max(hx, dx);
+    const mid = (left + right) / 2, lw = labelWidth(t.label);
+    return { i, hx, dx, left, right, mid, lw,
+      from: Math.min(left, mid - lw / 2) - 3, to: Math.max(right, mid + lw / 2) + 3 };
+  });
+  const placed = [];
+  arcs.filter(Boolean)
+    .sort((a, b) => (a.right - a.left) - (b.right - b.left) || a.left - b.left)
+    .forEach((arc) => {
+      let row = 1;
+      for (const other of placed) {
+        if (other.from < arc.to && arc.from < other.to) row = Math.max(row, other.row + 1);
+      }
+      arc.row = row;
+      placed.push(arc);
+    });
+  return arcs;
+}
+
 function drawTree(tokens, title, otherHeads) {
   const heads = tokens.map((t) => t.head);
   const crossing = crossingArcs(heads);
   const family = getComputedStyle(document.body).fontFamily;
   const widths = tokens.map((t) => Math.max(textWidth(t.form, `15px ${family}`), textWidth(t.tag || "", `11px ${family}`), 28));
+  const labelWidth = (label) => textWidth(label || "", `11px ${family}`) + 10;
   const xs = [];
-  let x = 24;
+  let x = 20;
   for (const w of widths) {
     xs.push(x + w / 2);
-    x += w + 22;
+    x += w + TREE.gap;
   }
-  const width = Math.max(x + 4, 200);
-  const maxSpan = Math.max(1, ...tokens.map((t, i) => (t.head === 0 ? 1 : Math.abs(t.head - (i + 1)))));
-  const arcHeight = (d) => Math.min(26 + 20 * d, 340);
-  const top = arcHeight(maxSpan) * 0.75 + 34;
-  const y0 = top + 6;
-  const height = y0 + 48;
+  const width = Math.max(x, 200);
+  const arcs = layoutArcs(tokens, xs, widths, labelWidth);
+  const rows = Math.max(0, ...arcs.filter(Boolean).map((a) => a.row));
+  const height = TREE.baseY + rows * TREE.row + TREE.labelHeight;
   const root = svg("svg", {
     class: "tree", width, height, viewBox: `0 0 ${width} ${height}`, role: "img",
     "aria-label": `${title}: dependency tree of ${tokens.length} words`,
   });
   tokens.forEach((t, i) => {
-    root.append(svg("text", { class: "word", x: xs[i], y: y0 + 20, "text-anchor": "middle" }, t.form));
-    root.append(svg("text", { class: "tag", x: xs[i], y: y0 + 36, "text-anchor": "middle" }, t.tag || ""));
+    root.append(svg("text", { class: "word", x: xs[i], y: TREE.wordY, "text-anchor": "middle" }, t.form));
+    root.append(svg("text", { class: "tag", x: xs[i], y: TREE.tagY, "text-anchor": "middle" }, t.tag || ""));
   });
+  const labels = [];
   tokens.forEach((t, i) => {
     const m = i + 1;
     const confidence = typeof t.confidence === "number" ? Math.max(0, Math.min(1, t.confidence)) : null;
     const classes = ["arc"];
     if (crossing.has(i)) classes.push("crossing");
     if (otherHeads && otherHeads[i] !== t.head) classes.push("differs");
-    const xm = xs[i];
-    let d, labelX, labelY;
+    const headForm = t.head === 0 ? "the root" : tokens[t.head - 1].form;
+    const hover = `${headForm} → ${t.form}: ${t.label}` + (confidence === null ? "" : `, confidence ${confidence.toFixed(3)}`);
+    let d, box;
     if (t.head === 0) {
-      d = `M${xm},10 L${xm},${y0 - 6}`;
-      labelX = xm + 4;
-      labelY = 22;
+      classes.push("root");
+      d = `M${xs[i]},12 V${TREE.wordY - 16}`;
+      root.append(svg("path", { class: "root-mark", d: `M${xs[i]},2 l5,5 l-5,5 l-5,-5 Z` }));
+      const lw = labelWidth(t.label);
+      box = { x: Math.min(xs[i] + 8, width - lw - 2), y: 0, w: lw };
     } else {
-      const xh = xs[t.head - 1] + (t.head < m ? 4 : -4);
-      const h = arcHeight(Math.abs(t.head - m));
-      d = `M${xh},${y0} C${xh},${y0 - h} ${xm},${y0 - h} ${xm},${y0 - 6}`;
-      labelX = (xh + xm) / 2;
-      labelY = y0 - h * 0.75 - 4;
+      const arc = arcs[i];
+      const y = TREE.baseY + arc.row * TREE.row;
+      d = `M${arc.hx},${TREE.baseY} V${y} H${arc.dx} V${TREE.baseY + 4}`;
+      root.append(svg("rect", { class: "head-mark" + (crossing.has(i) ? " crossing" : ""),
+        x: arc.hx - 2.5, y: TREE.baseY - 2.5, width: 5, height: 5 }));
+      root.append(svg("circle", { class: "dependent-mark" + (crossing.has(i) ? " crossing" : ""),
+        cx: arc.dx, cy: TREE.baseY + 1, r: 3 }));
+      const bx = Math.max(2, Math.min(arc.mid - arc.lw / 2, width - arc.lw - 2));
+      box = { x: bx, y: y - TREE.labelHeight / 2, w: arc.lw };
     }
-    const arc = svg("path", {
-      class: classes.join(" "),
-      d,
-      "data-head": t.head,
-      "data-dependent": m,
-      "data-label": t.label,
+    const path = svg("path", {
+      class: classes.join(" "), d,
+      "data-head": t.head, "data-dependent": m, "data-label": t.label,
       "data-confidence": confidence === null ? "" : confidence.toFixed(4),
-      "stroke-width": confidence === null ? 1.8 : (1 + 2.2 * confidence).toFixed(2),
-      "stroke-opacity": confidence === null ? 1 : (0.3 + 0.7 * confidence).toFixed(2),
     });
-    const headForm = t.head === 0 ? "ROOT" : tokens[t.head - 1].form;
-    arc.append(svg("title", {}, `${headForm} → ${t.form}: ${t.label}` + (confidence === null ? "" : `, confidence ${confidence.toFixed(3)}`)));
-    root.append(arc);
-    root.append(svg("path", {
-      class: "arrow" + (crossing.has(i) ? " crossing" : ""),
-      d: `M${xm - 4},${y0 - 9} L${xm + 4},${y0 - 9} L${xm},${y0 - 1} Z`,
-      "fill-opacity": confidence === null ? 1 : (0.3 + 0.7 * confidence).toFixed(2),
-    }));
-    root.append(svg("text", { class: "arc-label", x: labelX, y: labelY, "text-anchor": t.head === 0 ? "start" : "middle", "data-dependent": m }, t.label));
+    path.append(svg("title", {}, hover));
+    root.append(path);
+    labels.push({ box, m, label: t.label, hover, classes });
   });
+  // Labels last, so no bracket is drawn over one.
+  for (const { box, m, label, hover, classes } of labels) {
+    const group = svg("g", { class: "arc-label-group" });
+    group.append(svg("rect", { class: "label-box " + classes.filter((c) => c !== "arc").join(" "),
+      x: box.x, y: box.y, width: box.w, height: TREE.labelHeight, rx: 3, "data-dependent": m }));
+    group.append(svg("text", { class: "arc-label", x: box.x + box.w / 2, y: box.y + 11,
+      "text-anchor": "middle", "data-dependent": m }, label));
+    group.append(svg("title", {}, hover));
+    root.append(group);
+  }
   const crossings = crossing.size;
   const differs = otherHeads ? heads.filter((h, i) => h !== otherHeads[i]).length : 0;
   return el(
@@ -579,6 +633,41 @@ function drawTree(tokens, title, otherHeads) {
       otherHeads ? ` · ${differs} head(s) differ` : ""),
     el("div", { class: "scroll" }, root),
   );
+}
+
+// The layered view, for long sentences: one line per word in tree order (a head before its
+// dependents, dependents in sentence order), indented by depth, each with its label, tag and
+// position, so a sentence of any length reads top to bottom without horizontal scrolling.
+function drawLayers(tokens, title, otherHeads) {
+  const children = new Map();
+  tokens.forEach((t, i) => {
+    if (!children.has(t.head)) children.set(t.head, []);
+    children.get(t.head).push(i + 1);
+  });
+  const lines = [];
+  const seen = new Set();
+  const visit = (id, depth) => {
+    for (const child of children.get(id) || []) {
+      if (seen.has(child)) continue;
+      seen.add(child);
+      const t = tokens[child - 1];
+      const classes = ["layer"];
+      if (otherHeads && otherHeads[child - 1] !== t.head) classes.push("differs");
+      const line = el("li", { class: classes.join(" "), "data-dependent": child, "data-head": t.head },
+        el("span", { class: "layer-label" }, t.label), " ",
+        el("span", { class: "layer-form" }, t.form), " ",
+        el("span", { class: "layer-tag" }, t.tag || ""), " ",
+        el("span", { class: "layer-id" }, `#${child}` + (t.head === 0 ? "" : ` → #${t.head}`)));
+      // Through the CSS object model: the page's policy refuses inline style attributes.
+      line.style.setProperty("--depth", String(depth));
+      lines.push(line);
+      visit(child, depth + 1);
+    }
+  };
+  visit(0, 0);
+  return el("div", { class: "diagram", "data-decoder": title },
+    el("h3", {}, title, " · layers"),
+    el("ol", { class: "layers", "aria-label": `${title}: dependency tree as layers` }, lines));
 }
 
 function conllu(results) {
@@ -611,13 +700,16 @@ function renderParse() {
       const tokens = r.body.sentences[k].tokens;
       const other = results.length > 1 ? results[1 - j].body.sentences[k].tokens.map((t) => t.head) : null;
       const title = (results.length > 1 || first.sentences.length > 1 ? `sentence ${k + 1}, ` : "") + (r.decoder || "model default");
-      blocks.push(drawTree(tokens, title, other));
+      const view = $("view-pick").value === "layers" ? drawLayers : drawTree;
+      blocks.push(view(tokens, title, other));
     });
   });
   const legend = el("p", { class: "legend" },
-    el("span", { class: "sw" }), "arc (thicker and darker = more confident) ",
+    el("span", { class: "mark head" }), "head end ", el("span", { class: "mark dependent" }), "dependent end ",
+    el("span", { class: "mark root" }), "root ",
     el("span", { class: "sw crossing" }), "arc in a crossing ",
-    results.length > 1 ? [el("span", { class: "sw differs" }), "head differs between decoders"] : null);
+    results.length > 1 ? [el("span", { class: "sw differs" }), "head differs between decoders "] : null,
+    "· Confidences are in the table and on hover; they are not yet calibrated, so the drawing does not vary with them.");
   diagrams.replaceChildren(...blocks, legend);
   const tables = results.flatMap((r) =>
     r.body.sentences.map((sentence, k) =>
@@ -680,6 +772,9 @@ document.addEventListener("DOMContentLoaded", () => {
   });
   $("copy-conllu").addEventListener("click", copyConllu);
   $("stage-pick").addEventListener("change", refreshScaling);
+  $("view-pick").addEventListener("change", () => {
+    if (state.lastParse) renderParse();
+  });
   $("compare-pick").addEventListener("change", () => {
     $("decoder-pick").disabled = $("compare-pick").checked;
   });

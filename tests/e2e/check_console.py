@@ -8,6 +8,7 @@ JSON API returns for the same request, on a real test-set sentence.
 usage: check_console.py BINARY MODEL_DIR TEST_CONLLU WORK SCREENSHOTS
 """
 
+import json
 import os
 import shutil
 import subprocess
@@ -17,7 +18,7 @@ sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import check_service as cs  # noqa: E402  (free_port, start, publish, promote, TOKEN)
 
 ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
-MAX_TOKENS = 40
+MAX_TOKENS = 80
 
 
 def test_sentence(path, low=9, high=16):
@@ -41,6 +42,14 @@ def test_sentence(path, low=9, high=16):
     raise SystemExit(f"no sentence of {low}-{high} words in {path}")
 
 
+def longest_sentences(path, count=10):
+    """The `count` longest test sentences (word forms), shortest first."""
+    import conllu
+    with open(path, encoding="utf-8") as f:
+        sentences = [[t["form"] for t in s if isinstance(t["id"], int)] for s in conllu.parse(f.read())]
+    return sorted(sentences, key=len)[-count:]
+
+
 def main():
     binary, model_dir, test_conllu, work, screenshots = sys.argv[1:6]
     shutil.rmtree(work, ignore_errors=True)
@@ -57,7 +66,8 @@ def main():
                           extra=["--max-tokens", str(MAX_TOKENS)])
     try:
         env = dict(os.environ, BASE=base, TOKEN=cs.TOKEN, MODEL="tr", V1=v1, V2=v2,
-                   TOKENS=" ".join(test_sentence(test_conllu)), MAX_TOKENS=str(MAX_TOKENS), OUT=screenshots)
+                   TOKENS=" ".join(test_sentence(test_conllu)), MAX_TOKENS=str(MAX_TOKENS), OUT=screenshots,
+                   LONGEST=json.dumps(longest_sentences(test_conllu)))
         result = subprocess.run(["node", os.path.join(ui, "check_console.mjs")], env=env, timeout=300)
         code = result.returncode
     finally:

@@ -16,6 +16,7 @@ const env = (name) => {
 const BASE = env("BASE"), TOKEN = env("TOKEN"), MODEL = env("MODEL"), V1 = env("V1"), V2 = env("V2");
 const TOKENS = env("TOKENS").split(" ");
 const MAX_TOKENS = Number(env("MAX_TOKENS"));
+const LONGEST = JSON.parse(env("LONGEST")); // the ten longest test sentences, as token lists
 const OUT = env("OUT");
 mkdirSync(OUT, { recursive: true });
 
@@ -146,6 +147,62 @@ try {
   const both = await arcsOf(page);
   check(both.length === 2 * TOKENS.length, "comparison: one arc per token in each diagram");
   await page.screenshot({ path: `${OUT}/console-1280-compare.png`, fullPage: true });
+
+  // 4b. The ten longest test sentences, both decoders: every tree whole and full width, no two
+  // label boxes intersect, every arc inside its drawing.
+  let geometryProblems = [];
+  for (const [k, tokens] of LONGEST.entries()) {
+    await page.fill("#sentence", tokens.join(" "));
+    await page.click("#parse-button");
+    await page.waitForFunction((n) => {
+      const trees = document.querySelectorAll("#diagrams svg.tree");
+      return trees.length === 2 && [...trees].every((t) => t.querySelectorAll("path.arc").length === n);
+    }, tokens.length);
+    const problems = await page.evaluate(() => {
+      const found = [];
+      const boxOf = (node) => node.getBBox();
+      const meets = (a, b) => a.x < b.x + b.width - 0.5 && b.x < a.x + a.width - 0.5 &&
+        a.y < b.y + b.height - 0.5 && b.y < a.y + a.height - 0.5;
+      const area = document.querySelector("#diagrams").getBoundingClientRect();
+      document.querySelectorAll("#diagrams .diagram").forEach((diagram) => {
+        const tree = diagram.querySelector("svg.tree");
+        const name = diagram.dataset.decoder;
+        const width = Number(tree.getAttribute("width")), height = Number(tree.getAttribute("height"));
+        const boxes = [...tree.querySelectorAll("rect.label-box")].map(boxOf);
+        for (let i = 0; i < boxes.length; i++) {
+          for (let j = i + 1; j < boxes.length; j++) {
+            if (meets(boxes[i], boxes[j])) found.push(`${name}: label boxes ${i + 1} and ${j + 1} intersect`);
+          }
+        }
+        [...tree.querySelectorAll("path.arc"), ...tree.querySelectorAll("rect.label-box")].forEach((node) => {
+          const b = boxOf(node);
+          if (b.x < -0.5 || b.y < -0.5 || b.x + b.width > width + 0.5 || b.y + b.height > height + 0.5) {
+            found.push(`${name}: arc to ${node.dataset.dependent} leaves the drawing`);
+          }
+        });
+        if (diagram.getBoundingClientRect().width < area.width - 2) found.push(`${name}: not full width`);
+      });
+      return found;
+    });
+    geometryProblems = geometryProblems.concat(problems.map((p) => `sentence of ${tokens.length} words: ${p}`));
+    if (k === 0) await page.screenshot({ path: `${OUT}/console-1280-compare-longest.png`, fullPage: true });
+  }
+  check(geometryProblems.length === 0,
+    `ten longest test sentences (${LONGEST.map((t) => t.length).join(", ")} words), both decoders: ` +
+    `no label boxes intersect, every arc inside its drawing, trees full width` +
+    (geometryProblems.length ? `: ${geometryProblems.slice(0, 5).join("; ")}` : ""));
+
+  // 4c. The layered view: one line per word, indented by depth, heads before their dependents.
+  await page.selectOption("#view-pick", "layers");
+  await page.waitForSelector("#diagrams ol.layers");
+  const layers = await page.$$eval("#diagrams ol.layers", (lists) => lists.map((list) =>
+    [...list.querySelectorAll("li")].map((li) => [Number(li.dataset.dependent), Number(li.dataset.head)])));
+  const longest = LONGEST.at(-1);
+  check(layers.length === 2 && layers.every((lines) => lines.length === longest.length &&
+    lines.every(([d, h], i) => h === 0 || lines.slice(0, i).some(([e]) => e === h))),
+    `layers: ${longest.length} lines per tree, every head before its dependents`);
+  await page.screenshot({ path: `${OUT}/console-1280-layers.png`, fullPage: true });
+  await page.selectOption("#view-pick", "arcs");
   await page.uncheck("#compare-pick");
 
   // 5. Keyboard: Ctrl+Enter in the text box parses.
