@@ -428,6 +428,7 @@ async fn the_shown_sentences_parse_sensibly_with_the_demo_model() {
         models["models"][0]["serving"]["default_decoder"], "projective",
         "{models}"
     );
+    assert_eq!(models["admin_routes"], true, "an admin token is configured");
     // (form, tag, head, label) per word.
     let shown: [&[(&str, &str, u64, &str)]; 4] = [
         &[

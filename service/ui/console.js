@@ -6,12 +6,15 @@
 const SVG_NS = "http://www.w3.org/2000/svg";
 const $ = (id) => document.getElementById(id);
 const TRAFFIC_WINDOW_SECONDS = 600;
+// Fewer sentences than this give slopes that mean nothing (R² near 0 is common with a handful).
+const MIN_FIT_SENTENCES = 50;
 
 const state = {
   models: [],
   traffic: [], // {t, requests, errors} rates per second
   lastCounts: null,
   lastParse: null, // {request, results: [{decoder, body}]}
+  openedAt: Date.now() / 1000, // the traffic chart spans from here until it covers its window
 };
 
 // ---------------------------------------------------------------------------------------------
@@ -94,7 +97,8 @@ function setStatus(ok, text) {
 
 function showMessage(node, text, isError) {
   node.hidden = !text;
-  node.className = "message" + (isError ? " error" : "");
+  node.classList.add("message");
+  node.classList.toggle("error", Boolean(isError));
   node.textContent = text || "";
 }
 
@@ -108,6 +112,10 @@ async function refreshModels() {
     return;
   }
   state.models = reply.body.models || [];
+  state.adminRoutes = reply.body.admin_routes === true;
+  // Without an admin token on the replica, promote and rollback cannot work: hide them.
+  $("admin-row").hidden = !state.adminRoutes;
+  $("admin-off").hidden = state.adminRoutes;
   const serving = state.models.filter((m) => m.serving);
   setStatus(
     serving.length > 0,
@@ -175,7 +183,7 @@ function renderModels() {
           el("td", { class: "num" }, formatBytes(v.size_bytes || 0)),
           el("td", {}, (v.aliases || []).join(", ")),
           el("td", {}, scores),
-          el(
+          !state.adminRoutes ? null : el(
             "td",
             {},
             el(
@@ -185,6 +193,7 @@ function renderModels() {
                 class: "secondary promote",
                 "data-version": v.version,
                 disabled: isLive,
+                title: isLive ? "Already live: live points at this version" : `Point live at ${v.version}`,
                 onclick: () => activate(model.name, v.version, "promote"),
               },
               isLive ? "live" : "Make live",
@@ -200,7 +209,7 @@ function renderModels() {
         {},
         el("caption", { class: "hint" }, `${(model.versions || []).length} version(s), newest first`),
         el("thead", {}, el("tr", {}, el("th", {}, "version"), el("th", {}, "published"), el("th", { class: "num" }, "size"),
-          el("th", {}, "aliases"), el("th", {}, "scores"), el("th", {}, ""))),
+          el("th", {}, "aliases"), el("th", {}, "scores"), state.adminRoutes ? el("th", {}, "") : null)),
         el("tbody", {}, rows),
       ),
     );
@@ -224,7 +233,11 @@ function renderModels() {
         ),
       ),
     );
-    return el("div", { class: "model-card", "data-model": model.name }, head, versions, el("p", {}, rollback), swapList);
+    const message = el("div", { class: "message admin-message", role: "alert", hidden: true });
+    const pending = state.pendingMessage;
+    if (pending && pending.name === model.name) showMessage(message, pending.text, pending.error);
+    const admin = state.adminRoutes ? [el("p", {}, rollback), message] : [];
+    return el("div", { class: "model-card", "data-model": model.name }, head, versions, ...admin, swapList);
   });
   // Keep keyboard focus where it was when the list is redrawn.
   const focused = document.activeElement;
@@ -236,36 +249,45 @@ function renderModels() {
   }
 }
 
+// The message goes next to the controls of the model whose button was pressed.
+function adminMessageFor(name) {
+  return document.querySelector(`[data-model="${CSS.escape(name)}"] .admin-message`) || $("admin-message");
+}
+
 async function activate(name, version, verb) {
-  const message = $("admin-message");
+  // Kept in the page state so that the message survives the model list being redrawn.
+  const say = (text, error) => {
+    state.pendingMessage = { name, text, error };
+    showMessage(adminMessageFor(name), text, error);
+  };
   const token = $("admin-token").value.trim();
   if (!version) return;
   if (!token) {
-    showMessage(message, "Enter the admin token first.", true);
+    say("Enter the admin token first (above the model list).", true);
     $("admin-token").focus();
     return;
   }
-  showMessage(message, `Asking to ${verb} ${name} to ${version}…`, false);
+  say(`Asking to ${verb} ${name} to ${version}…`, false);
   const reply = await api(`/v1/models/${encodeURIComponent(name)}/activate`, {
     body: { version },
     headers: { authorization: "Bearer " + token },
   });
   if (!reply.ok) {
-    showMessage(message, `${verb} failed: ${reply.error.message}`, true);
+    say(`${verb} failed: ${reply.error.message}`, true);
     return;
   }
-  showMessage(message, `live → ${version}; waiting for this replica to load it…`, false);
+  say(`live → ${version}; waiting for this replica to load it…`, false);
   const deadline = Date.now() + 30000;
   while (Date.now() < deadline) {
     await refreshModels();
     const model = state.models.find((m) => m.name === name);
     if (model && model.serving && model.serving.version === version) {
-      showMessage(message, `${name} now serves ${version}.`, false);
+      say(`${name} now serves ${version}.`, false);
       return;
     }
     await new Promise((r) => setTimeout(r, 500));
   }
-  showMessage(message, `live points at ${version}, but this replica has not loaded it yet; see the swaps table.`, true);
+  say(`live points at ${version}, but this replica has not loaded it yet; see the swaps table.`, true);
 }
 
 function fillModelPicker() {
@@ -314,17 +336,19 @@ function drawLatency(report) {
     $("latency-caption").textContent = "Waiting for parses…";
     return;
   }
-  const xMin = 4, xMax = 1024;
   // Reference slopes 2 and 3 start at the first point of the first series with data and run
   // over the measured lengths, at least three octaves, so the two are visibly different.
   const anchor = series.find((s) => s.points.length).points[0];
   const lastX = Math.max(...all.map((p) => p.x));
   const guideEnd = Math.min(512, Math.max(lastX, anchor.x * 8));
+  // Axes fitted to the data: from half the shortest bucket to a little past the guides' end.
+  const xMin = Math.max(1, Math.min(...all.map((p) => p.x)) / 1.5), xMax = guideEnd * 1.6;
   let yMin = Math.min(...all.map((p) => p.y)) / 2;
   let yMax = Math.max(Math.max(...all.map((p) => p.y)), anchor.y * Math.pow(guideEnd / anchor.x, 3)) * 2;
   if (yMax / yMin < 1000) yMin = yMax / 1000;
   const sx = logScale(xMin, xMax, L, W - R), sy = logScale(yMin, yMax, H - B, T);
-  for (let x = 8; x <= 512; x *= 2) {
+  for (let x = 2; x <= 1024; x *= 2) {
+    if (x < xMin || x > xMax) continue;
     root.append(svg("line", { class: "grid", x1: sx(x), x2: sx(x), y1: T, y2: H - B }));
     root.append(svg("text", { x: sx(x), y: H - B + 14, "text-anchor": "middle" }, String(x)));
   }
@@ -352,7 +376,8 @@ function drawLatency(report) {
       dot.append(svg("title", {}, `${s.decoder}, ≤${p.x} tokens: median ${formatSeconds(p.y)} over ${p.count} sentences`));
       root.append(dot);
     }
-    if (s.fit && s.points.length >= 2) {
+    const fitted = s.fit && s.fit.samples >= MIN_FIT_SENTENCES;
+    if (fitted && s.points.length >= 2) {
       // The fitted line, through the geometric centre of the plotted points.
       const gx = Math.exp(s.points.reduce((a, p) => a + Math.log(p.x), 0) / s.points.length);
       const gy = Math.exp(s.points.reduce((a, p) => a + Math.log(p.y), 0) / s.points.length);
@@ -360,9 +385,10 @@ function drawLatency(report) {
       const at = (x) => gy * Math.pow(x / gx, s.fit.exponent);
       root.append(svg("line", { class: "fit " + cls, x1: sx(first), y1: sy(at(first)), x2: sx(last), y2: sy(at(last)) }));
     }
-    captions.push(s.fit
+    captions.push(fitted
       ? `${s.decoder}: fitted slope ${s.fit.exponent.toFixed(2)} (R² ${s.fit.r_squared.toFixed(2)}, ${s.fit.samples} recent sentences of ≥ ${report.min_tokens} tokens)`
-      : `${s.decoder}: not enough sentences of ≥ ${report.min_tokens} tokens for a fit yet`);
+      : `${s.decoder}: a slope is shown from ${MIN_FIT_SENTENCES} sentences of ≥ ${report.min_tokens} tokens ` +
+        `(${s.fit ? s.fit.samples : 0} so far)`);
   }
   const legend = svg("g", {});
   series.forEach((s, i) => {
@@ -417,15 +443,20 @@ function drawTraffic(now) {
   const root = svg("svg", { viewBox: `0 0 ${W} ${H}`, role: "img", "aria-label": "requests and errors per second" });
   const points = state.traffic;
   const yMax = Math.max(1, ...points.map((p) => p.requests)) * 1.15;
-  const sx = (t) => L + ((t - (now - TRAFFIC_WINDOW_SECONDS)) / TRAFFIC_WINDOW_SECONDS) * (W - R - L);
+  // The time axis grows from the moment the page opened (at least one minute) until it covers
+  // the whole window, then slides.
+  const span = Math.min(TRAFFIC_WINDOW_SECONDS, Math.max(60, now - state.openedAt));
+  const sx = (t) => L + ((t - (now - span)) / span) * (W - R - L);
   const sy = (v) => H - B - (v / yMax) * (H - B - T);
   for (let i = 0; i <= 4; i++) {
     const v = (yMax / 4) * i;
     root.append(svg("line", { class: "grid", x1: L, x2: W - R, y1: sy(v), y2: sy(v) }));
     root.append(svg("text", { x: L - 6, y: sy(v) + 4, "text-anchor": "end" }, v >= 10 ? v.toFixed(0) : v.toFixed(1)));
   }
-  for (let m = 0; m <= 10; m += 2) {
-    root.append(svg("text", { x: sx(now - m * 60), y: H - B + 14, "text-anchor": "middle" }, m === 0 ? "now" : `−${m} min`));
+  for (let k = 0; k <= 5; k++) {
+    const age = (span * k) / 5;
+    const label = k === 0 ? "now" : age < 120 ? `−${Math.round(age)} s` : `−${(age / 60).toFixed(1).replace(/\.0$/, "")} min`;
+    root.append(svg("text", { x: sx(now - age), y: H - B + 14, "text-anchor": "middle" }, label));
   }
   root.append(svg("line", { class: "axis", x1: L, x2: W - R, y1: H - B, y2: H - B }));
   root.append(svg("text", { x: (L + W - R) / 2, y: H - 6, "text-anchor": "middle" }, "requests/s on this replica (all APIs)"));

@@ -64,15 +64,24 @@ def main():
     http_port, grpc_port = cs.free_port(), cs.free_port()
     proc, base = cs.start(binary, store, work, http_port, grpc_port, poll="1",
                           extra=["--max-tokens", str(MAX_TOKENS)])
+    # A second replica on the same store without an admin token.
+    bare_port = cs.free_port()
+    bare_log = open(os.path.join(work, "serve-no-admin.log"), "w")
+    bare = subprocess.Popen([binary, "serve", "--store", store, "--http", f"127.0.0.1:{bare_port}",
+                             "--grpc", f"127.0.0.1:{cs.free_port()}", "--cache-dir", os.path.join(work, "bare-cache")],
+                            stdout=bare_log, stderr=bare_log)
     try:
         env = dict(os.environ, BASE=base, TOKEN=cs.TOKEN, MODEL="tr", V1=v1, V2=v2,
+                   BASE_NO_ADMIN=f"http://127.0.0.1:{bare_port}",
                    TOKENS=" ".join(test_sentence(test_conllu)), MAX_TOKENS=str(MAX_TOKENS), OUT=screenshots,
                    LONGEST=json.dumps(longest_sentences(test_conllu)))
         result = subprocess.run(["node", os.path.join(ui, "check_console.mjs")], env=env, timeout=300)
         code = result.returncode
     finally:
         proc.terminate()
+        bare.terminate()
         proc.wait(timeout=30)
+        bare.wait(timeout=30)
     sys.exit(code)
 
 

@@ -242,14 +242,18 @@ try {
   await page.waitForSelector("#latency-chart svg circle", { timeout: 15000 });
   const guides = await page.$$eval("#latency-chart svg text", (t) => t.map((x) => x.textContent));
   check(guides.includes("slope 2") && guides.includes("slope 3"), "latency chart draws the slope-2 and slope-3 guides");
+  const caption = await page.textContent("#latency-caption");
+  const fitted = [...caption.matchAll(/fitted slope [\d.]+ \(R² [\d.-]+, (\d+) recent sentences/g)].map((m) => Number(m[1]));
+  check(fitted.every((n) => n >= 50) && (fitted.length > 0 || caption.includes("a slope is shown from 50 sentences")),
+    `no slope from fewer than 50 sentences: "${caption.trim()}"`);
   await page.waitForSelector("#traffic-chart svg path.traffic-line", { timeout: 15000 });
   check(true, "traffic chart draws requests per second");
 
   // 8. Promote: a wrong token is refused with the API's message; the right one moves `live`.
   await page.fill("#admin-token", "not-the-token-at-all");
   await page.click(`[data-model="${MODEL}"] button.promote[data-version="${V2}"]`);
-  await page.waitForFunction(() => document.querySelector("#admin-message")?.textContent.includes("failed"));
-  shown = await page.textContent("#admin-message");
+  await page.waitForFunction((m) => document.querySelector(`[data-model="${m}"] .admin-message`)?.textContent.includes("failed"), MODEL);
+  shown = await page.textContent(`[data-model="${MODEL}"] .admin-message`);
   check(/token|auth/i.test(shown), `a wrong admin token is refused: "${shown.trim()}"`);
   await page.fill("#admin-token", TOKEN);
   await page.click(`[data-model="${MODEL}"] button.promote[data-version="${V2}"]`);
@@ -271,6 +275,18 @@ try {
   const overflow = await phone.evaluate(() => document.documentElement.scrollWidth - window.innerWidth);
   check(overflow <= 1, `phone width 390 px: the page does not scroll sideways (overflow ${overflow} px)`);
   await phone.screenshot({ path: `${OUT}/console-390-phone.png`, fullPage: true });
+
+  // 10. A replica without an admin token: the admin controls are hidden and the page says why.
+  const bare = await browser.newPage({ viewport: { width: 1280, height: 900 } });
+  await bare.goto(env("BASE_NO_ADMIN") + "/ui");
+  await bare.waitForSelector(`[data-model="${MODEL}"]`, { timeout: 15000 });
+  const adminShown = await bare.isVisible("#admin-row");
+  const offNote = await bare.isVisible("#admin-off");
+  const adminButtons = await bare.$$eval(`[data-model="${MODEL}"] button`, (b) => b.length);
+  check(!adminShown && offNote && adminButtons === 0,
+    `no admin token on the replica: token field hidden, a note says why, no promote or rollback buttons (${adminButtons})`);
+  await bare.screenshot({ path: `${OUT}/console-1280-no-admin.png`, fullPage: true });
+  await bare.close();
 
   check(outside.length === 0, `no request left the service (${outside.length}: ${outside.slice(0, 3).join(", ")})`);
   check(pageErrors.length === 0, `no script errors in the page (${pageErrors.slice(0, 3).join(" | ")})`);

@@ -131,6 +131,9 @@ pub struct ActivateResponse {
 #[allow(dead_code)] // the reply is assembled as JSON in `models_status`; this documents it
 pub struct ModelsResponse {
     models: Vec<serde_json::Value>,
+    /// Whether this replica has an admin token, i.e. whether promote and rollback can work
+    /// through it (the console hides its admin controls otherwise).
+    admin_routes: bool,
 }
 
 /// The error replies of the parse routes (documentation only: every error is an `ApiError`).

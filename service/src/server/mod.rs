@@ -128,7 +128,7 @@ pub async fn models_status(state: &AppState) -> Result<serde_json::Value, ApiErr
             "swaps": registry.swaps().into_iter().filter(|e| e.name == name).collect::<Vec<_>>(),
         }));
     }
-    Ok(serde_json::json!({ "models": models }))
+    Ok(serde_json::json!({ "models": models, "admin_routes": state.admin_token.is_some() }))
 }
 
 /// Moves the store's `live` alias to `version` (all replicas follow) and swaps this replica at
