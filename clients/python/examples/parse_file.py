@@ -9,6 +9,7 @@ Text input: each blank-line separated paragraph is sent as text; the service spl
 sentences.
 """
 import argparse
+import signal
 import sys
 from pathlib import Path
 
@@ -17,6 +18,8 @@ from arcwright_client import Client, Refused, Settings, write_conllu  # noqa: E4
 
 
 def main():
+    # Piped into `head` and the like: end quietly when the reader goes away.
+    signal.signal(signal.SIGPIPE, signal.SIG_DFL)
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("file", help="the file to parse")
     parser.add_argument("--input", choices=["conllu", "text"], default="conllu", help="what the file holds")

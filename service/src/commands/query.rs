@@ -83,6 +83,8 @@ pub fn run(options: &QueryOptions) -> Result<(), Failure> {
         let mut out = format!("# model = {} {}\n", model.name, model.version);
         for (index, sentence) in reply.sentences.iter().enumerate() {
             out.push_str(&format!("# sent_id = {}\n", index + 1));
+            let forms: Vec<&str> = sentence.tokens.iter().map(|t| t.form.as_str()).collect();
+            out.push_str(&format!("# text = {}\n", forms.join(" ")));
             for t in &sentence.tokens {
                 let misc = t
                     .confidence
