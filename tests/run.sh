@@ -176,6 +176,8 @@ define conllu-check "install build" "arcwright conllu check on the Turkish treeb
     "$BIN" conllu check "$TREEBANK/web.conllu" "$TREEBANK/wiki.conllu"
 define turkish "install build" "train and evaluate on the Turkish treebank (floors, crossing arcs, reproducibility)" \
     python3 tests/oracles/check_turkish_training.py "$BIN" "$TREEBANK" "$TURKISH" 8
+define calibration "install build model" "calibrated confidences: ECE recomputed by Guo et al.'s formula, bound 0.03, every word in [0, 1]; UAS/LAS recomputed (conllu package)" \
+    python3 tests/oracles/check_calibration.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/calibration"
 define sentence-split "install build model" "sentence boundaries of raw text against the Turkish test split (conllu package), with and without learned abbreviations" \
     python3 tests/oracles/check_sentence_split.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/sentence-split"
 define pipeline-identity "install build model" "service replies equal the library's, bit for bit (Turkish test split, HTTP and gRPC)" \

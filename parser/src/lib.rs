@@ -4,6 +4,7 @@
 //! This crate does no networking and knows nothing about gRPC, HTTP, the model store or async
 //! runtimes; the service and the command line are built on top of it.
 
+pub mod calibration;
 pub mod conllu;
 pub mod decode;
 pub mod demo;

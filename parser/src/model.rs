@@ -6,6 +6,7 @@ use std::path::Path;
 
 use serde::{Deserialize, Serialize};
 
+use crate::calibration::Temperatures;
 use crate::decode::Algorithm;
 use crate::features::FeatureConfig;
 use crate::pipeline::{self, ParseOptions, Parsed, StageObserver, Unobserved};
@@ -27,6 +28,10 @@ pub struct Model {
     pub default_decoder: Algorithm,
     /// Tokens ending in a full stop that do not end a sentence, for splitting raw text.
     pub abbreviations: Abbreviations,
+    /// Arc scores are divided by the decoder's temperature before confidences are computed
+    /// (fitted on dev data so that they are calibrated; 1 when not fitted). Decoding does not
+    /// use them.
+    pub confidence_temperatures: Temperatures,
     /// Free-form facts about the training run (data fingerprint, epochs, scores).
     pub training: serde_json::Value,
 }
@@ -70,6 +75,9 @@ struct Description {
     /// Absent in models written before abbreviations were learned: none.
     #[serde(default)]
     abbreviations: Vec<String>,
+    /// Absent in models written before confidences were calibrated: 1 for both decoders.
+    #[serde(default)]
+    confidence_temperatures: Temperatures,
     training: serde_json::Value,
 }
 
@@ -178,6 +186,7 @@ impl Model {
             morph_tags: self.morph_tagger.as_ref().map(|t| t.tags.clone()),
             default_decoder: self.default_decoder.name().to_string(),
             abbreviations: self.abbreviations.to_list(),
+            confidence_temperatures: self.confidence_temperatures,
             training: self.training.clone(),
         };
         let json = serde_json::to_string_pretty(&description).map_err(|e| ModelError::Format {
@@ -210,6 +219,12 @@ impl Model {
         {
             return Err(format_error("hash bits outside 10..=30".to_string()));
         }
+        if !d.confidence_temperatures.valid() {
+            return Err(format_error(format!(
+                "confidence_temperatures {:?}: each must be a positive number",
+                d.confidence_temperatures
+            )));
+        }
         let default_decoder = Algorithm::from_name(&d.default_decoder)
             .ok_or_else(|| format_error(format!("unknown decoder {:?}", d.default_decoder)))?;
         let tagger = Tagger {
@@ -241,6 +256,7 @@ impl Model {
             morph_tagger,
             default_decoder,
             abbreviations: Abbreviations::from_list(d.abbreviations),
+            confidence_temperatures: d.confidence_temperatures,
             training: d.training,
         })
     }
@@ -259,6 +275,11 @@ impl Model {
             ..ParseOptions::default()
         };
         pipeline::parse(self, forms, tags, morph, &options, &mut Unobserved)
+    }
+
+    /// Arc scores of a sentence tagged by the model's own taggers ([`pipeline::arc_scores`]).
+    pub fn arc_scores(&self, forms: &[String]) -> crate::decode::ScoreMatrix {
+        pipeline::arc_scores(self, forms)
     }
 
     /// The full pipeline ([`pipeline::parse`]) with explicit options and a stage observer.

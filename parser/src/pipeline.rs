@@ -6,7 +6,7 @@
 
 use std::time::Instant;
 
-use crate::decode::{self, Algorithm, Heads, RootConstraint};
+use crate::decode::{self, Algorithm, Heads, RootConstraint, ScoreMatrix};
 use crate::marginals::{self, matrix_tree::Effort};
 use crate::model::Model;
 use crate::scorer::TaggedSentence;
@@ -79,6 +79,38 @@ pub struct Parsed {
     pub confidences: Option<Vec<Option<f64>>>,
 }
 
+/// Tags (unless given) and the morphology summaries a scorer that reads them needs.
+fn tag(
+    model: &Model,
+    forms: &[String],
+    tags: Option<&[String]>,
+    morph: Option<&[String]>,
+) -> (Vec<String>, Vec<String>) {
+    let tags: Vec<String> = match tags {
+        Some(t) => t.to_vec(),
+        None => model.tagger.tag(forms),
+    };
+    // Morphology is tagged only for a scorer that reads it.
+    let morph: Vec<String> = match (model.scorer.uses_morphology(), morph, &model.morph_tagger) {
+        (false, _, _) | (true, None, None) => Vec::new(),
+        (true, Some(m), _) => m.to_vec(),
+        (true, None, Some(tagger)) => tagger.tag(forms),
+    };
+    (tags, morph)
+}
+
+/// The model's arc scores for a sentence, tagged by the model's own taggers (as in use): what
+/// confidences are computed from, for fitting and checking their calibration.
+pub fn arc_scores(model: &Model, forms: &[String]) -> ScoreMatrix {
+    let (tags, morph) = tag(model, forms, None, None);
+    let scored = model.scorer.score(TaggedSentence {
+        forms,
+        tags: &tags,
+        morph: &morph,
+    });
+    scored.arc_scores().clone()
+}
+
 /// Tags (unless `tags` are given) and parses one sentence of at least one word.
 pub fn parse(
     model: &Model,
@@ -94,16 +126,7 @@ pub fn parse(
         observer.stage_done(stage, now.duration_since(clock).as_secs_f64());
         clock = now;
     };
-    let tags: Vec<String> = match tags {
-        Some(t) => t.to_vec(),
-        None => model.tagger.tag(forms),
-    };
-    // Morphology is tagged only for a scorer that reads it.
-    let morph: Vec<String> = match (model.scorer.uses_morphology(), morph, &model.morph_tagger) {
-        (false, _, _) | (true, None, None) => Vec::new(),
-        (true, Some(m), _) => m.to_vec(),
-        (true, None, Some(tagger)) => tagger.tag(forms),
-    };
+    let (tags, morph) = tag(model, forms, tags, morph);
     lap(observer, Stage::Tag);
     let scored = model.scorer.score(TaggedSentence {
         forms,
@@ -116,8 +139,18 @@ pub fn parse(
     let decoded = decode::decode(scores, decoder, RootConstraint::SingleRoot);
     lap(observer, Stage::Decode);
     let confidences = options.confidence.then(|| {
+        // Confidences from the calibrated distribution: scores divided by the model's fitted
+        // temperature (the decoded tree is the same at any temperature).
+        let temperature = model.confidence_temperatures.get(decoder);
+        let calibrated;
+        let for_marginals = if temperature == 1.0 {
+            scores
+        } else {
+            calibrated = scores.scaled(1.0 / temperature);
+            &calibrated
+        };
         let p = marginals::marginals_within(
-            scores,
+            for_marginals,
             decoder,
             RootConstraint::SingleRoot,
             options.confidence_effort,
@@ -130,7 +163,9 @@ pub fn parse(
                 // cancellation, so every column should sum to 1; one that does not is left out
                 // rather than reported wrong.
                 let total: f64 = (0..decoded.heads.len()).map(|h| p.probability(h, m)).sum();
-                (p.reliable(m) && (total - 1.0).abs() <= 1e-6).then(|| p.probability(head, m))
+                // Probabilities, whatever rounding did: never outside [0, 1].
+                (p.reliable(m) && (total - 1.0).abs() <= 1e-6)
+                    .then(|| p.probability(head, m).clamp(0.0, 1.0))
             })
             .collect();
         lap(observer, Stage::Confidence);

@@ -11,6 +11,7 @@
 //! position, and mixing averages in shard order, so the same seed and thread count give
 //! bit-identical weights.
 
+use crate::calibration;
 use crate::conllu::Sentence;
 use crate::decode::{self, Algorithm, RootConstraint, is_projective};
 use crate::features::FeatureConfig;
@@ -197,6 +198,7 @@ pub fn train(
         morph_tagger,
         default_decoder: decoder,
         abbreviations: Abbreviations::learn(train.iter().map(|e| e.forms.as_slice())),
+        confidence_temperatures: calibration::Temperatures::default(),
         training: serde_json::Value::Null,
     };
     let label_index = |label: &str| {
@@ -324,7 +326,31 @@ pub fn train(
         model.linear_mut().arc_weights = arcs;
         model.linear_mut().label_weights = labels;
     }
+    if !dev.is_empty() {
+        progress("fitting the confidence temperatures on dev", None);
+        model.confidence_temperatures = fit_confidence_temperatures(&model, dev, threads);
+    }
     model
+}
+
+/// The temperatures that calibrate the model's confidences on `dev` for each decoder, parsed as
+/// in use (tags and morphology predicted by the model's own taggers).
+pub fn fit_confidence_temperatures(
+    model: &Model,
+    dev: &[Example],
+    threads: usize,
+) -> calibration::Temperatures {
+    let held: Vec<calibration::Held> = dev
+        .iter()
+        .map(|example| calibration::Held {
+            scores: model.arc_scores(&example.forms),
+            heads: example.heads.clone(),
+        })
+        .collect();
+    calibration::Temperatures {
+        projective: calibration::fit_temperature(&held, Algorithm::Projective, threads),
+        non_projective: calibration::fit_temperature(&held, Algorithm::NonProjective, threads),
+    }
 }
 
 /// The training set with tags and morphology predicted by taggers trained on the other folds

@@ -306,6 +306,12 @@ pub struct EvalOptions {
     /// Use the gold UPOS and FEATS instead of predicting them.
     #[arg(long)]
     pub gold_tags: bool,
+    /// Write a reliability diagram of the arc confidences (SVG) to this file.
+    #[arg(long, value_name = "FILE.svg")]
+    pub reliability: Option<PathBuf>,
+    /// Write each scored arc's confidence and whether its head is right (TSV) to this file.
+    #[arg(long, value_name = "FILE.tsv")]
+    pub arc_confidences: Option<PathBuf>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]

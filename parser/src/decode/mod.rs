@@ -155,6 +155,19 @@ impl ScoreMatrix {
         Ok(ScoreMatrix { words, scores })
     }
 
+    /// Every score multiplied by `factor` (> 0): the same trees in the same order, a flatter
+    /// (factor < 1) or more peaked (factor > 1) distribution over them.
+    pub fn scaled(&self, factor: f64) -> ScoreMatrix {
+        ScoreMatrix {
+            words: self.words,
+            scores: self
+                .scores
+                .iter()
+                .map(|&s| if s.is_finite() { s * factor } else { s })
+                .collect(),
+        }
+    }
+
     /// Builds a matrix from rows (as read from JSON).
     pub fn from_rows(rows: &[Vec<f64>]) -> Result<Self, ScoreMatrixError> {
         let side = rows.len();
