@@ -266,6 +266,24 @@ async fn bad_input_table_and_a_good_parse() {
             "does not take GET",
         ),
         (
+            "GET",
+            "/v1/scaling?tokens=abc",
+            Vec::new(),
+            None,
+            400,
+            "bad_query",
+            "expected a whole number from 1 to 4096",
+        ),
+        (
+            "GET",
+            "/v1/scaling?size=3",
+            Vec::new(),
+            None,
+            400,
+            "bad_query",
+            "unknown query parameter",
+        ),
+        (
             "DELETE",
             "/v1/models",
             Vec::new(),
@@ -309,6 +327,31 @@ async fn bad_input_table_and_a_good_parse() {
             "confidence {text}: six decimals at most"
         );
     }
+    // Sentences of several lengths, then the cost model predicts any length.
+    for words in [3usize, 9, 20, 40] {
+        let tokens: Vec<String> = (0..words).map(|i| format!("w{i}")).collect();
+        let body = serde_json::json!({ "tokens": tokens })
+            .to_string()
+            .into_bytes();
+        let (status, _) = call(&state, "POST", "/v1/parse", body, None).await;
+        assert_eq!(status, StatusCode::OK);
+    }
+    let (status, scaling) = call(&state, "GET", "/v1/scaling?tokens=100", Vec::new(), None).await;
+    assert_eq!(status, StatusCode::OK, "{scaling}");
+    let predictions = scaling["prediction"]["predictions"]
+        .as_array()
+        .expect("predictions");
+    assert!(
+        predictions
+            .iter()
+            .any(|p| p["stage"] == "decode" && p["seconds"].as_f64().is_some_and(|s| s > 0.0)),
+        "{scaling}"
+    );
+    assert!(
+        scaling["cost_models"]
+            .as_array()
+            .is_some_and(|m| !m.is_empty())
+    );
     // A browser pointed at the service's address lands on the console.
     let response = server::http::router(state.clone())
         .oneshot(Request::get("/").body(Body::empty()).expect("request"))

@@ -60,6 +60,8 @@ pub enum ErrorCode {
     LoadFailed,
     /// The body is not valid JSON of the expected shape.
     MalformedJson,
+    /// A query parameter that is missing its value, malformed or out of range.
+    BadQuery,
     /// The route exists, but not for this HTTP method.
     MethodNotAllowed,
     /// A sentence with neither text nor tokens.
@@ -116,6 +118,7 @@ impl ErrorCode {
             ErrorCode::InvalidUtf8 => "invalid_utf8",
             ErrorCode::LoadFailed => "load_failed",
             ErrorCode::MalformedJson => "malformed_json",
+            ErrorCode::BadQuery => "bad_query",
             ErrorCode::NoInput => "no_input",
             ErrorCode::NoModel => "no_model",
             ErrorCode::NoRoute => "no_route",
@@ -151,6 +154,7 @@ impl ErrorCode {
             | ErrorCode::InvalidName
             | ErrorCode::InvalidUtf8
             | ErrorCode::MalformedJson
+            | ErrorCode::BadQuery
             | ErrorCode::NoInput
             | ErrorCode::SentenceTooLong
             | ErrorCode::TagsMismatch

@@ -444,15 +444,51 @@ pub(super) async fn prometheus_metrics() -> impl IntoResponse {
 }
 
 #[utoipa::path(get, path = "/v1/scaling",
-    summary = "Latency against sentence length: exponent fits per decoder and stage, per-bucket quantiles",
-    responses((status = 200, description = "Fits and buckets", body = Object)))]
-pub(super) async fn scaling() -> Json<serde_json::Value> {
-    Json(
-        super::scaling::TRACKER
-            .lock()
-            .map(|t| t.report())
-            .unwrap_or_default(),
-    )
+    summary = "Latency against sentence length: exponent fits, cost models t(n) = a + b·n² + c·n³ and per-bucket quantiles per decoder and stage; with `tokens`, the predicted time of that length",
+    params(("tokens" = Option<usize>, Query, minimum = 1, maximum = 4096,
+        description = "Predict each stage's time for a sentence of this many tokens")),
+    responses((status = 200, description = "Fits, cost models and buckets", body = Object),
+        (status = 400, description = "Bad query parameter", body = ErrorResponse)))]
+pub(super) async fn scaling(
+    axum::extract::RawQuery(query): axum::extract::RawQuery,
+) -> Result<Json<serde_json::Value>, ApiError> {
+    let mut tokens = None;
+    for pair in query
+        .as_deref()
+        .unwrap_or("")
+        .split('&')
+        .filter(|p| !p.is_empty())
+    {
+        match pair.split_once('=') {
+            Some(("tokens", value)) => {
+                let n = value
+                    .parse::<usize>()
+                    .ok()
+                    .filter(|n| (1..=4096).contains(n))
+                    .ok_or_else(|| {
+                        ApiError::new(
+                            ErrorCode::BadQuery,
+                            format!("tokens={value:?}: expected a whole number from 1 to 4096"),
+                        )
+                    })?;
+                tokens = Some(n);
+            }
+            _ => {
+                return Err(ApiError::new(
+                    ErrorCode::BadQuery,
+                    format!("unknown query parameter {pair:?}; this route takes tokens=N"),
+                ));
+            }
+        }
+    }
+    let tracker = super::scaling::TRACKER
+        .lock()
+        .map_err(|_| ApiError::new(ErrorCode::Internal, "scaling tracker unavailable"))?;
+    let mut report = tracker.report();
+    if let Some(n) = tokens {
+        report["prediction"] = tracker.predict(n);
+    }
+    Ok(Json(report))
 }
 
 #[utoipa::path(get, path = "/v1/openapi.json", summary = "This document",

@@ -2,9 +2,17 @@
 //!
 //! For each (stage, decoder), an ordinary least-squares fit of ln(duration) against ln(tokens)
 //! over a sliding window of the most recent sentences: the slope is the scaling exponent (≈3 for
-//! projective decoding, ≈2 for non-projective decoding and arc scoring). Running sums of x, y,
-//! x², xy and y² are updated as samples enter and leave the window, so recording is O(1) and a
-//! fit is O(1) too.
+//! projective decoding, ≈2 for non-projective decoding and arc scoring). Recording is O(1); each
+//! fit is recomputed from the window's samples when asked for (O(window)), so no running sum
+//! drifts with rounding however long the process lives.
+//!
+//! Beside the single exponent, a cost model per (stage, decoder): t(n) = a + b·n² + c·n³ fitted
+//! by non-negative least squares to the length buckets' medians (at each bucket's median length,
+//! weighted by its sentence count). Over the lengths real traffic has, fixed and quadratic
+//! per-sentence costs weigh as much as the cubic term, so one exponent mixes them; the model
+//! separates them, says from which length the cubic term is the larger part, gives the local
+//! slope d ln t / d ln n at the traffic's median and 99th-percentile lengths, and predicts the time
+//! of any length (`/v1/scaling?tokens=N`) with the model's error on the observed buckets.
 //!
 //! Sentences under 8 tokens are left out: their time is dominated by fixed per-sentence costs
 //! (allocation, tagging setup, the call itself), which would flatten the fitted slope and hide the
@@ -25,14 +33,13 @@ const BUCKET_WINDOW: usize = 1024;
 /// Shortest sentence used in fits.
 pub const MIN_TOKENS: usize = 8;
 
+/// (tokens, seconds) per sentence, oldest first.
+type Samples = VecDeque<(usize, f64)>;
+
 #[derive(Debug, Default)]
 struct Series {
+    /// (ln tokens, ln seconds) of the most recent sentences.
     points: VecDeque<(f64, f64)>,
-    sx: f64,
-    sy: f64,
-    sxx: f64,
-    sxy: f64,
-    syy: f64,
 }
 
 /// A fitted exponent.
@@ -46,30 +53,26 @@ pub struct Fit {
 impl Series {
     fn push(&mut self, x: f64, y: f64) {
         self.points.push_back((x, y));
-        self.add(x, y, 1.0);
-        if self.points.len() > WINDOW
-            && let Some((ox, oy)) = self.points.pop_front()
-        {
-            self.add(ox, oy, -1.0);
+        if self.points.len() > WINDOW {
+            self.points.pop_front();
         }
     }
 
-    fn add(&mut self, x: f64, y: f64, sign: f64) {
-        self.sx += sign * x;
-        self.sy += sign * y;
-        self.sxx += sign * x * x;
-        self.sxy += sign * x * y;
-        self.syy += sign * y * y;
-    }
-
+    /// Least squares from the samples themselves, centred first (two passes), so the result
+    /// does not depend on how many samples came and went before.
     fn fit(&self) -> Option<Fit> {
         let n = self.points.len() as f64;
         if self.points.len() < 3 {
             return None;
         }
-        let vxx = self.sxx - self.sx * self.sx / n;
-        let vxy = self.sxy - self.sx * self.sy / n;
-        let vyy = self.syy - self.sy * self.sy / n;
+        let mx = self.points.iter().map(|p| p.0).sum::<f64>() / n;
+        let my = self.points.iter().map(|p| p.1).sum::<f64>() / n;
+        let (mut vxx, mut vxy, mut vyy) = (0.0, 0.0, 0.0);
+        for &(x, y) in &self.points {
+            vxx += (x - mx) * (x - mx);
+            vxy += (x - mx) * (y - my);
+            vyy += (y - my) * (y - my);
+        }
         if vxx <= 1e-12 {
             return None; // all sentences the same length: no slope to fit
         }
@@ -92,7 +95,8 @@ impl Series {
 #[derive(Debug, Default)]
 pub struct Tracker {
     series: BTreeMap<(&'static str, &'static str), Series>,
-    buckets: BTreeMap<(&'static str, &'static str, &'static str), VecDeque<f64>>,
+    /// (tokens, seconds) of the most recent sentences per (stage, decoder, length bucket).
+    buckets: BTreeMap<(&'static str, &'static str, &'static str), Samples>,
 }
 
 impl Tracker {
@@ -105,7 +109,7 @@ impl Tracker {
         seconds: f64,
     ) {
         let durations = self.buckets.entry((stage, decoder, bucket)).or_default();
-        durations.push_back(seconds);
+        durations.push_back((tokens, seconds));
         if durations.len() > BUCKET_WINDOW {
             durations.pop_front();
         }
@@ -137,15 +141,241 @@ impl Tracker {
             .buckets
             .iter()
             .map(|((stage, decoder, bucket), durations)| {
-                let mut sorted: Vec<f64> = durations.iter().copied().collect();
+                let mut sorted: Vec<f64> = durations.iter().map(|d| d.1).collect();
                 sorted.sort_by(f64::total_cmp);
                 let q = |p: f64| sorted[((sorted.len() - 1) as f64 * p).round() as usize];
                 serde_json::json!({"stage": stage, "decoder": decoder, "length_bucket": bucket, "count": sorted.len(),
                                    "p50_seconds": q(0.5), "p90_seconds": q(0.9), "p99_seconds": q(0.99)})
             })
             .collect();
-        serde_json::json!({"window": WINDOW, "min_tokens": MIN_TOKENS, "fits": fits, "buckets": buckets})
+        let cost_models: Vec<serde_json::Value> = self
+            .cost_models()
+            .into_iter()
+            .map(|(stage, decoder, m)| {
+                serde_json::json!({"stage": stage, "decoder": decoder, "model": m})
+            })
+            .collect();
+        serde_json::json!({"window": WINDOW, "min_tokens": MIN_TOKENS, "fits": fits, "buckets": buckets,
+                           "cost_models": cost_models})
     }
+
+    /// The cost model of every (stage, decoder) with at least two length buckets.
+    pub fn cost_models(&self) -> Vec<(&'static str, &'static str, CostModel)> {
+        let mut grouped: BTreeMap<(&'static str, &'static str), Vec<&Samples>> = BTreeMap::new();
+        for ((stage, decoder, _), samples) in &self.buckets {
+            grouped.entry((stage, decoder)).or_default().push(samples);
+        }
+        grouped
+            .into_iter()
+            .filter_map(|((stage, decoder), buckets)| {
+                let points: Vec<BucketPoint> = buckets
+                    .iter()
+                    .filter(|b| !b.is_empty())
+                    .map(|b| {
+                        let mut tokens: Vec<usize> = b.iter().map(|s| s.0).collect();
+                        let mut seconds: Vec<f64> = b.iter().map(|s| s.1).collect();
+                        tokens.sort_unstable();
+                        seconds.sort_by(f64::total_cmp);
+                        BucketPoint {
+                            tokens: tokens[tokens.len() / 2] as f64,
+                            median_seconds: seconds[seconds.len() / 2],
+                            count: b.len(),
+                        }
+                    })
+                    .collect();
+                let mut lengths: Vec<usize> =
+                    buckets.iter().flat_map(|b| b.iter().map(|s| s.0)).collect();
+                lengths.sort_unstable();
+                CostModel::fit(&points, &lengths).map(|m| (stage, decoder, m))
+            })
+            .collect()
+    }
+
+    /// Predicted seconds for a sentence of `tokens` tokens, per (stage, decoder), with the
+    /// model's largest relative error on the observed buckets.
+    pub fn predict(&self, tokens: usize) -> serde_json::Value {
+        let predictions: Vec<serde_json::Value> = self
+            .cost_models()
+            .into_iter()
+            .map(|(stage, decoder, m)| {
+                serde_json::json!({"stage": stage, "decoder": decoder, "tokens": tokens,
+                                   "seconds": m.seconds(tokens as f64),
+                                   "relative_error": m.max_relative_error})
+            })
+            .collect();
+        serde_json::json!({ "tokens": tokens, "predictions": predictions })
+    }
+}
+
+/// One length bucket as the cost model sees it.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct BucketPoint {
+    /// Median length of the bucket's sentences.
+    pub tokens: f64,
+    pub median_seconds: f64,
+    pub count: usize,
+}
+
+/// t(n) = a + b·n² + c·n³ with a, b, c ≥ 0, and what it says.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct CostModel {
+    /// Seconds per sentence whatever its length.
+    pub a: f64,
+    /// Seconds per squared token.
+    pub b: f64,
+    /// Seconds per cubed token.
+    pub c: f64,
+    /// The shortest length from which c·n³ ≥ a + b·n² (none when c = 0 or beyond 4096).
+    pub cubic_dominates_from: Option<usize>,
+    /// Median and 99th-percentile sentence length of the window.
+    pub median_tokens: usize,
+    pub p99_tokens: usize,
+    /// d ln t / d ln n of the model at those lengths.
+    pub slope_at_median: f64,
+    pub slope_at_p99: f64,
+    /// Per bucket: (median tokens, observed median seconds, model seconds, relative error).
+    pub buckets: Vec<(f64, f64, f64, f64)>,
+    /// The largest |model − observed| / observed over the buckets.
+    pub max_relative_error: f64,
+}
+
+impl CostModel {
+    pub fn seconds(&self, n: f64) -> f64 {
+        self.a + self.b * n * n + self.c * n * n * n
+    }
+
+    /// d ln t / d ln n = (2b·n² + 3c·n³) / t(n).
+    pub fn slope(&self, n: f64) -> f64 {
+        let t = self.seconds(n);
+        if t <= 0.0 {
+            return 0.0;
+        }
+        (2.0 * self.b * n * n + 3.0 * self.c * n * n * n) / t
+    }
+
+    /// Fits the model to bucket medians (weighted by counts); `None` with fewer than two
+    /// buckets.
+    pub fn fit(points: &[BucketPoint], sorted_lengths: &[usize]) -> Option<CostModel> {
+        if points.len() < 2 || sorted_lengths.is_empty() {
+            return None;
+        }
+        let [a, b, c] = nnls3(points);
+        let mut model = CostModel {
+            a,
+            b,
+            c,
+            cubic_dominates_from: None,
+            median_tokens: sorted_lengths[sorted_lengths.len() / 2],
+            p99_tokens: sorted_lengths[((sorted_lengths.len() - 1) as f64 * 0.99).round() as usize],
+            slope_at_median: 0.0,
+            slope_at_p99: 0.0,
+            buckets: Vec::new(),
+            max_relative_error: 0.0,
+        };
+        model.cubic_dominates_from = (c > 0.0)
+            .then(|| {
+                (1..=4096).find(|&n| {
+                    let n = n as f64;
+                    c * n * n * n >= a + b * n * n
+                })
+            })
+            .flatten();
+        model.slope_at_median = model.slope(model.median_tokens as f64);
+        model.slope_at_p99 = model.slope(model.p99_tokens as f64);
+        model.buckets = points
+            .iter()
+            .map(|p| {
+                let predicted = model.seconds(p.tokens);
+                let error = (predicted - p.median_seconds) / p.median_seconds.max(1e-12);
+                (p.tokens, p.median_seconds, predicted, error)
+            })
+            .collect();
+        model.max_relative_error = model.buckets.iter().map(|b| b.3.abs()).fold(0.0, f64::max);
+        Some(model)
+    }
+}
+
+/// Non-negative least squares for t ≈ a + b·n² + c·n³, weighted by counts: the solution of a
+/// convex problem is the unconstrained least-squares solution on its support, so every support
+/// (7 non-empty subsets of three terms) is solved and the best feasible one kept. Lengths are
+/// scaled by 1/100 inside, so the normal equations stay well conditioned.
+pub fn nnls3(points: &[BucketPoint]) -> [f64; 3] {
+    const SCALE: f64 = 100.0;
+    let basis = |n: f64| {
+        let x = n / SCALE;
+        [1.0, x * x, x * x * x]
+    };
+    let mut best: Option<(f64, [f64; 3])> = None;
+    for support in 1u32..8 {
+        let terms: Vec<usize> = (0..3).filter(|k| support & (1 << k) != 0).collect();
+        let k = terms.len();
+        // Normal equations on the support: (XᵀWX) β = XᵀWy.
+        let mut matrix = [[0.0f64; 4]; 3];
+        for p in points {
+            let row = basis(p.tokens);
+            let w = p.count as f64;
+            for (i, &ti) in terms.iter().enumerate() {
+                for (j, &tj) in terms.iter().enumerate() {
+                    matrix[i][j] += w * row[ti] * row[tj];
+                }
+                matrix[i][3] += w * row[ti] * p.median_seconds;
+            }
+        }
+        let Some(solution) = solve(&mut matrix, k) else {
+            continue;
+        };
+        if solution[..k].iter().any(|&v| v < 0.0) {
+            continue;
+        }
+        let mut beta = [0.0; 3];
+        for (i, &t) in terms.iter().enumerate() {
+            beta[t] = solution[i];
+        }
+        let error: f64 = points
+            .iter()
+            .map(|p| {
+                let row = basis(p.tokens);
+                let r = row[0] * beta[0] + row[1] * beta[1] + row[2] * beta[2] - p.median_seconds;
+                p.count as f64 * r * r
+            })
+            .sum();
+        if best.is_none_or(|(e, _)| error < e) {
+            best = Some((error, beta));
+        }
+    }
+    let beta = best.map_or([0.0; 3], |(_, b)| b);
+    [
+        beta[0],
+        beta[1] / (SCALE * SCALE),
+        beta[2] / (SCALE * SCALE * SCALE),
+    ]
+}
+
+/// Gaussian elimination with partial pivoting on the first k rows and columns, the right-hand
+/// side in column 3.
+fn solve(m: &mut [[f64; 4]; 3], k: usize) -> Option<[f64; 3]> {
+    for col in 0..k {
+        let pivot = (col..k).max_by(|&i, &j| m[i][col].abs().total_cmp(&m[j][col].abs()))?;
+        if m[pivot][col].abs() < 1e-300 {
+            return None;
+        }
+        m.swap(col, pivot);
+        for row in col + 1..k {
+            let f = m[row][col] / m[col][col];
+            for c in (col..k).chain(std::iter::once(3)) {
+                m[row][c] -= f * m[col][c];
+            }
+        }
+    }
+    let mut x = [0.0; 3];
+    for row in (0..k).rev() {
+        let mut v = m[row][3];
+        for c in row + 1..k {
+            v -= m[row][c] * x[c];
+        }
+        x[row] = v / m[row][row];
+    }
+    x.iter().take(k).all(|v| v.is_finite()).then_some(x)
 }
 
 pub static TRACKER: LazyLock<Mutex<Tracker>> = LazyLock::new(|| Mutex::new(Tracker::default()));
@@ -202,5 +432,74 @@ mod tests {
         tracker.record("decode", "projective", 5, "8", 1e-6);
         assert!(tracker.fits().is_empty());
         assert_eq!(tracker.report()["buckets"][0]["count"], 1);
+    }
+}
+
+#[cfg(test)]
+mod cost_model_tests {
+    use super::*;
+
+    fn points(f: impl Fn(f64) -> f64) -> Vec<BucketPoint> {
+        [6.0, 12.0, 24.0, 48.0, 96.0, 192.0, 384.0]
+            .iter()
+            .map(|&n| BucketPoint {
+                tokens: n,
+                median_seconds: f(n),
+                count: 10,
+            })
+            .collect()
+    }
+
+    /// Exact data of a known model give its coefficients back, and what the model says follows
+    /// from them (worked by hand: a = 1e-5, c = 1e-9 → c·n³ ≥ a + b·n² from n = 22 with
+    /// b = 1e-9: 22³·1e-9 = 1.06e-5 ≥ 1e-5 + 484e-9 = 1.048e-5, while 21³·1e-9 = 9.26e-6 < 1.044e-5).
+    #[test]
+    fn known_coefficients_are_recovered() {
+        let truth = |n: f64| 1e-5 + 1e-9 * n * n + 1e-9 * n * n * n;
+        let [a, b, c] = nnls3(&points(truth));
+        assert!((a - 1e-5).abs() < 1e-12 && (b - 1e-9).abs() < 1e-15 && (c - 1e-9).abs() < 1e-16);
+        let lengths: Vec<usize> = (6..=384).collect();
+        let m = CostModel::fit(&points(truth), &lengths).expect("fit");
+        assert_eq!(m.cubic_dominates_from, Some(22));
+        assert!(m.max_relative_error < 1e-9);
+        // Local slope at n: (2b n² + 3c n³) / t(n).
+        let n = 195.0;
+        let expected = (2e-9 * n * n + 3e-9 * n * n * n) / truth(n);
+        assert!((m.slope(n) - expected).abs() < 1e-12);
+        assert_eq!(m.median_tokens, 195);
+    }
+
+    /// Where the unconstrained fit would make a coefficient negative, NNLS sets it to zero; the
+    /// result matches a brute-force search over a fine grid of non-negative coefficients.
+    #[test]
+    fn negative_terms_are_clipped_like_brute_force() {
+        // Convex data with a dip the n² term would fit with a negative sign.
+        let data =
+            points(|n| 2e-6 + 3e-10 * n * n * n - 1e-9 * n * n + 1e-6 * (n / 50.0).sin().abs());
+        let [a, b, c] = nnls3(&data);
+        assert!(a >= 0.0 && b >= 0.0 && c >= 0.0);
+        let error = |a: f64, b: f64, c: f64| -> f64 {
+            data.iter()
+                .map(|p| {
+                    let r = a + b * p.tokens * p.tokens + c * p.tokens.powi(3) - p.median_seconds;
+                    p.count as f64 * r * r
+                })
+                .sum()
+        };
+        let ours = error(a, b, c);
+        let mut brute = f64::MAX;
+        for i in 0..=60 {
+            for j in 0..=60 {
+                for k in 0..=60 {
+                    let (ga, gb, gc) = (
+                        f64::from(i) * 1e-7,
+                        f64::from(j) * 5e-11,
+                        f64::from(k) * 1e-11,
+                    );
+                    brute = brute.min(error(ga, gb, gc));
+                }
+            }
+        }
+        assert!(ours <= brute * (1.0 + 1e-9), "nnls {ours} vs grid {brute}");
     }
 }
