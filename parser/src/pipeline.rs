@@ -1,7 +1,7 @@
 //! The parse pipeline, the one place a sentence becomes a tree: tag → score → decode →
 //! confidences → label. The command line, training's dev evaluation and the service all call
 //! [`parse`]; the service times each stage through a [`StageObserver`] instead of re-implementing
-//! the stages. (Tokenizing raw text is [`crate::tokenize::sentences`], which callers run first
+//! the stages. (Tokenizing raw text is [`crate::tokenize::split`], which callers run first
 //! because they check its output against their limits.)
 
 use std::time::Instant;

@@ -66,14 +66,6 @@ impl Abbreviations {
         self.0.iter().cloned().collect()
     }
 
-    pub fn len(&self) -> usize {
-        self.0.len()
-    }
-
-    pub fn is_empty(&self) -> bool {
-        self.0.is_empty()
-    }
-
     pub fn contains(&self, form: &str) -> bool {
         self.0.contains(form)
     }
@@ -147,14 +139,6 @@ pub fn split(text: &str, abbreviations: &Abbreviations) -> Vec<TextSentence> {
         .collect()
 }
 
-/// Splits text into sentences of tokens by UAX #29 alone (no abbreviations).
-pub fn sentences(text: &str) -> Vec<Vec<String>> {
-    split(text, &Abbreviations::default())
-        .into_iter()
-        .map(|s| s.tokens)
-        .collect()
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -162,6 +146,12 @@ mod tests {
     /// UAX #29 behaviour on Turkish text (expected splits worked out from the UAX #29 rules).
     #[test]
     fn splits_sentences_and_words_by_uax29() {
+        let sentences = |text: &str| -> Vec<Vec<String>> {
+            split(text, &Abbreviations::default())
+                .into_iter()
+                .map(|s| s.tokens)
+                .collect()
+        };
         let got = sentences("Ankara'da 3.5 derece vardı. Yarın yağmur yağacak!");
         assert_eq!(
             got,

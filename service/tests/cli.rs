@@ -5,24 +5,7 @@ use std::io::Write;
 use std::process::{Command, Stdio};
 
 fn run(args: &[&str], stdin: &[u8]) -> (i32, String, String) {
-    let mut child = Command::new(env!("CARGO_BIN_EXE_arcwright"))
-        .args(args)
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("binary starts");
-    // A command that rejects its arguments exits without reading its input: a broken pipe here
-    // is that, not a failure (the exit code and message are checked by the caller).
-    if let Err(e) = child.stdin.take().expect("stdin").write_all(stdin) {
-        assert_eq!(e.kind(), std::io::ErrorKind::BrokenPipe, "write stdin: {e}");
-    }
-    let out = child.wait_with_output().expect("binary finishes");
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into_owned(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
+    run_with_env(args, &[], stdin)
 }
 
 /// `run` with extra environment variables.
@@ -35,6 +18,8 @@ fn run_with_env(args: &[&str], env: &[(&str, &str)], stdin: &[u8]) -> (i32, Stri
         .stderr(Stdio::piped())
         .spawn()
         .expect("binary starts");
+    // A command that rejects its arguments exits without reading its input: a broken pipe here
+    // is that, not a failure (the exit code and message are checked by the caller).
     if let Err(e) = child.stdin.take().expect("stdin").write_all(stdin) {
         assert_eq!(e.kind(), std::io::ErrorKind::BrokenPipe, "write stdin: {e}");
     }

@@ -78,16 +78,29 @@ async fn call(
     )
 }
 
-#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
-async fn bad_input_table_and_a_good_parse() {
-    let tmp = tempfile::tempdir().expect("tempdir");
-    let state = server::build_state(&config(
-        &tmp.path().join("store"),
-        &tmp.path().join("cache"),
+/// The service with the demo model in a store under `dir` and a 10 s deadline.
+async fn demo_state(dir: &std::path::Path) -> Arc<AppState> {
+    server::build_state(&config(
+        &dir.join("store"),
+        &dir.join("cache"),
         Duration::from_secs(10),
     ))
     .await
-    .expect("state");
+    .expect("state")
+}
+
+/// The router's whole reply (status and headers) to a bodyless GET.
+async fn get_response(state: &Arc<AppState>, uri: &str) -> axum::response::Response {
+    server::http::router(state.clone())
+        .oneshot(Request::get(uri).body(Body::empty()).expect("request"))
+        .await
+        .expect("response")
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn bad_input_table_and_a_good_parse() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    let state = demo_state(tmp.path()).await;
     let long_sentence = serde_json::json!({"tokens": vec!["w"; 41]}).to_string();
     let big_batch =
         serde_json::json!({"sentences": vec![serde_json::json!({"text": "a b"}); 5]}).to_string();
@@ -353,10 +366,7 @@ async fn bad_input_table_and_a_good_parse() {
             .is_some_and(|m| !m.is_empty())
     );
     // A browser pointed at the service's address lands on the console.
-    let response = server::http::router(state.clone())
-        .oneshot(Request::get("/").body(Body::empty()).expect("request"))
-        .await
-        .expect("response");
+    let response = get_response(&state, "/").await;
     assert_eq!(response.status(), StatusCode::TEMPORARY_REDIRECT);
     assert_eq!(response.headers()["location"], "/ui");
     // A wrong method keeps the Allow header beside the JSON body.
@@ -458,13 +468,7 @@ async fn console_is_served_with_a_same_origin_only_policy() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn the_shown_sentences_parse_sensibly_with_the_demo_model() {
     let tmp = tempfile::tempdir().expect("tempdir");
-    let state = server::build_state(&config(
-        &tmp.path().join("store"),
-        &tmp.path().join("cache"),
-        Duration::from_secs(10),
-    ))
-    .await
-    .expect("state");
+    let state = demo_state(tmp.path()).await;
     let (status, models) = call(&state, "GET", "/v1/models", Vec::new(), None).await;
     assert_eq!(status, StatusCode::OK);
     assert_eq!(

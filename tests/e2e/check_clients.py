@@ -44,12 +44,8 @@ def main():
     binary, model, test_split, work = sys.argv[1:5]
     shutil.rmtree(work, ignore_errors=True)
     os.makedirs(work)
-    failures = []
-
-    def expect(ok, what):
-        print(("ok   " if ok else "FAIL ") + what)
-        if not ok:
-            failures.append(what)
+    checks = cs.Checks(report_passes=True)
+    expect = checks.expect
 
     built = run(["cargo", "build", "--release", "--quiet", "-p", "arcwright-client", "--example", "parse_file"],
                 cwd=ROOT)
@@ -116,7 +112,7 @@ def main():
     finally:
         server.terminate()
         server.wait(timeout=30)
-    sys.exit(1 if failures else 0)
+    sys.exit(1 if checks.failures else 0)
 
 
 if __name__ == "__main__":

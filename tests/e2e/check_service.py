@@ -38,12 +38,17 @@ def free_port():
 
 
 class Checks:
-    def __init__(self):
-        self.failures, self.passed = [], 0
+    """Collects failures; with report_passes, also prints each passed check (for checks whose
+    messages carry the figures measured)."""
+
+    def __init__(self, report_passes=False):
+        self.failures, self.passed, self.report_passes = [], 0, report_passes
 
     def expect(self, ok, message):
         if ok:
             self.passed += 1
+            if self.report_passes:
+                print("ok  ", message)
         else:
             self.failures.append(message)
             print("FAIL", message, file=sys.stderr)

@@ -27,6 +27,9 @@ import xml.etree.ElementTree as ET
 
 import conllu
 
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "e2e"))
+import check_service as cs  # noqa: E402  (Checks)
+
 BOUND = 0.03
 
 
@@ -47,12 +50,8 @@ def main():
     binary, model, gold_path, work = sys.argv[1:5]
     shutil.rmtree(work, ignore_errors=True)
     os.makedirs(work)
-    failures = []
-
-    def expect(ok, what):
-        print(("ok   " if ok else "FAIL ") + what)
-        if not ok:
-            failures.append(what)
+    checks = cs.Checks(report_passes=True)
+    expect = checks.expect
 
     with open(gold_path, encoding="utf-8") as f:
         gold_text = f.read()
@@ -97,7 +96,7 @@ def main():
         expect(abs(uas - report["uas"]) < 1e-9 and abs(las - report["las"]) < 1e-9,
                f"{decoder}: UAS {uas:.2f} / LAS {las:.2f} recomputed from parse output = eval's "
                f"{report['uas']:.2f} / {report['las']:.2f}")
-    sys.exit(1 if failures else 0)
+    sys.exit(1 if checks.failures else 0)
 
 
 if __name__ == "__main__":

@@ -84,11 +84,6 @@ pub struct Parsed {
 
 #[derive(Debug, thiserror::Error)]
 pub enum ClientError {
-    #[error("cannot reach {address}: {source}")]
-    Connect {
-        address: String,
-        source: tonic::transport::Error,
-    },
     #[error("invalid address {address:?}: {source}")]
     Address {
         address: String,

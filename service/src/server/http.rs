@@ -484,11 +484,7 @@ pub(super) async fn scaling(
     let tracker = super::scaling::TRACKER
         .lock()
         .map_err(|_| ApiError::new(ErrorCode::Internal, "scaling tracker unavailable"))?;
-    let mut report = tracker.report();
-    if let Some(n) = tokens {
-        report["prediction"] = tracker.predict(n);
-    }
-    Ok(Json(report))
+    Ok(Json(tracker.report(tokens)))
 }
 
 #[utoipa::path(get, path = "/v1/openapi.json", summary = "This document",

@@ -130,8 +130,9 @@ impl Tracker {
             .collect()
     }
 
-    /// JSON for `/v1/scaling`.
-    pub fn report(&self) -> serde_json::Value {
+    /// JSON for `/v1/scaling`; with `tokens`, also each stage's predicted time for that length
+    /// and the model's largest relative error on the observed buckets.
+    pub fn report(&self, tokens: Option<usize>) -> serde_json::Value {
         let fits: Vec<serde_json::Value> = self
             .fits()
             .into_iter()
@@ -148,15 +149,28 @@ impl Tracker {
                                    "p50_seconds": q(0.5), "p90_seconds": q(0.9), "p99_seconds": q(0.99)})
             })
             .collect();
-        let cost_models: Vec<serde_json::Value> = self
-            .cost_models()
-            .into_iter()
+        let models = self.cost_models();
+        let cost_models: Vec<serde_json::Value> = models
+            .iter()
             .map(|(stage, decoder, m)| {
                 serde_json::json!({"stage": stage, "decoder": decoder, "model": m})
             })
             .collect();
-        serde_json::json!({"window": WINDOW, "min_tokens": MIN_TOKENS, "fits": fits, "buckets": buckets,
-                           "cost_models": cost_models})
+        let mut report = serde_json::json!({"window": WINDOW, "min_tokens": MIN_TOKENS, "fits": fits,
+                                            "buckets": buckets, "cost_models": cost_models});
+        if let Some(tokens) = tokens {
+            let predictions: Vec<serde_json::Value> = models
+                .iter()
+                .map(|(stage, decoder, m)| {
+                    serde_json::json!({"stage": stage, "decoder": decoder, "tokens": tokens,
+                                       "seconds": m.seconds(tokens as f64),
+                                       "relative_error": m.max_relative_error})
+                })
+                .collect();
+            report["prediction"] =
+                serde_json::json!({ "tokens": tokens, "predictions": predictions });
+        }
+        report
     }
 
     /// The cost model of every (stage, decoder) with at least two length buckets.
@@ -189,21 +203,6 @@ impl Tracker {
                 CostModel::fit(&points, &lengths).map(|m| (stage, decoder, m))
             })
             .collect()
-    }
-
-    /// Predicted seconds for a sentence of `tokens` tokens, per (stage, decoder), with the
-    /// model's largest relative error on the observed buckets.
-    pub fn predict(&self, tokens: usize) -> serde_json::Value {
-        let predictions: Vec<serde_json::Value> = self
-            .cost_models()
-            .into_iter()
-            .map(|(stage, decoder, m)| {
-                serde_json::json!({"stage": stage, "decoder": decoder, "tokens": tokens,
-                                   "seconds": m.seconds(tokens as f64),
-                                   "relative_error": m.max_relative_error})
-            })
-            .collect();
-        serde_json::json!({ "tokens": tokens, "predictions": predictions })
     }
 }
 
@@ -431,7 +430,7 @@ mod tests {
         let mut tracker = Tracker::default();
         tracker.record("decode", "projective", 5, "8", 1e-6);
         assert!(tracker.fits().is_empty());
-        assert_eq!(tracker.report()["buckets"][0]["count"], 1);
+        assert_eq!(tracker.report(None)["buckets"][0]["count"], 1);
     }
 }
 
