@@ -3,9 +3,11 @@
 # Rust tests, the outside reference checks (tests/oracles/) and the end-to-end checks
 # (tests/e2e/). Exit code 0 only if every step passes.
 #
-# Usage: tests/run.sh [--no-install] [--list] [STEP ...]
+# Usage: tests/run.sh [--no-install] [--full] [--list] [STEP ...]
 #   STEP ...      run only these steps (names from --list), plus what they need (the build, and
 #                 the trained Turkish models when a step uses them and they are not cached yet)
+#   --full        also run the long steps (marked "full run" in --list): the neural model on the
+#                 Turkish treebank, about 15 minutes on 2 cores
 #   --no-install  install nothing: check that every package is present and say what is missing
 #   --list        print the step names and exit
 #
@@ -30,11 +32,13 @@ PYTHON_PACKAGES=("networkx==3.6.1" "conllu==6.0.0" "moto[server]==5.2.1"
 MACHETE_VERSION=0.9.2
 
 install=1
+full=0
 selected=()
 for argument in "$@"; do
     case $argument in
         --no-install) install=0 ;;
         --list) list=1 ;;
+        --full) full=1 ;;
         -*) echo "unknown option $argument (see the head of tests/run.sh)" >&2; exit 2 ;;
         *) selected+=("$argument") ;;
     esac
@@ -186,6 +190,10 @@ define clients "install build model" "the Python and Rust clients against a real
     python3 tests/e2e/check_clients.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/clients"
 define store "install build model" "model store on local disk and on an S3-compatible server (moto on 127.0.0.1)" \
     python3 tests/e2e/check_store_s3.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/store"
+define neural "install build" "the neural kind on demo data: trained in a bounded time, eval and parse, served beside a linear version and swapped both ways under load with zero failed requests" \
+    python3 tests/e2e/check_neural.py "$BIN" "$CACHE/work/neural"
+define neural-turkish "full install build model" "full run: the neural kind on the Turkish treebank: floors UAS/LAS with predicted tags, calibration bound, training time and memory, parse speed" \
+    python3 tests/oracles/check_neural_turkish.py "$BIN" "$TURKISH/split" "$CACHE/work/neural-turkish"
 define service "install build model" "service end to end: Python gRPC stubs from proto/, HTTP, hot swap under load, SIGTERM" \
     python3 tests/e2e/check_service.py "$BIN" "$MODEL" "$CACHE/work/service"
 define openapi "install build" "schemathesis against /v1/openapi.json (no 5xx, replies match the schema)" \
@@ -216,7 +224,10 @@ fi
 
 declare -A chosen
 if ((${#selected[@]} == 0)); then
-    for name in "${STEPS[@]}"; do chosen[$name]=1; done
+    for name in "${STEPS[@]}"; do
+        [[ " ${NEEDS[$name]} " == *" full "* ]] && ((!full)) && continue
+        chosen[$name]=1
+    done
 else
     for name in "${selected[@]}"; do
         [[ -n ${DESCRIPTION[$name]:-} ]] || { echo "unknown step $name; see tests/run.sh --list" >&2; exit 2; }

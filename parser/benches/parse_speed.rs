@@ -59,7 +59,7 @@ fn main() {
             .as_ref()
             .map(|t| t.tag(&forms))
             .unwrap_or_default();
-        let linear = model.linear();
+        let linear = model.linear().expect("a linear model");
         let features = linear.sentence_features(&forms, &tags, &morph);
         let scores =
             LinearScorer::arc_scores(&features, &linear.arc_weights, linear.features.hash_bits);

@@ -29,7 +29,7 @@ fn main() {
             )
         })
         .collect();
-    let linear = model.linear();
+    let linear = model.linear().expect("a linear model");
     let mut total = 0.0;
     for _ in 0..repeats {
         for (forms, tags) in &sentences {

@@ -13,6 +13,7 @@ pub mod features;
 pub mod hashing;
 pub mod marginals;
 pub mod model;
+pub mod neural;
 pub mod perceptron;
 pub mod pipeline;
 pub mod scorer;

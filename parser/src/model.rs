@@ -9,6 +9,7 @@ use serde::{Deserialize, Serialize};
 use crate::calibration::Temperatures;
 use crate::decode::Algorithm;
 use crate::features::FeatureConfig;
+use crate::neural::{NeuralConfig, NeuralScorer, Vocabulary};
 use crate::pipeline::{self, ParseOptions, Parsed, StageObserver, Unobserved};
 use crate::scorer::{ArcScorer, LinearScorer};
 use crate::tagger::Tagger;
@@ -53,6 +54,8 @@ pub enum ModelError {
 #[derive(Debug, Clone, PartialEq)]
 pub struct ModelSummary {
     pub format: String,
+    /// `linear` or `neural`.
+    pub kind: String,
     /// Feature and decoder settings.
     pub settings: serde_json::Value,
     pub labels: Vec<String>,
@@ -60,13 +63,33 @@ pub struct ModelSummary {
     pub training_fingerprint: Option<String>,
 }
 
+fn linear_kind() -> String {
+    "linear".to_string()
+}
+
+/// What a neural model adds to the description: its network's shape and the vocabularies that
+/// are not shared with the linear kind.
+#[derive(Serialize, Deserialize)]
+struct NeuralDescription {
+    config: NeuralConfig,
+    words: Vec<String>,
+    morph_features: Vec<String>,
+}
+
 #[derive(Serialize, Deserialize)]
 struct Description {
     format: String,
+    /// `linear` (absent in models written before there was a second kind) or `neural`.
+    #[serde(default = "linear_kind")]
+    kind: String,
+    /// Linear kind only (0 in a neural model).
+    #[serde(default)]
     hash_bits: u32,
     morphology: bool,
     tags: Vec<String>,
     labels: Vec<String>,
+    /// Linear kind only (0 in a neural model).
+    #[serde(default)]
     label_bits: u32,
     tagger_tags: Vec<String>,
     tagger_bits: u32,
@@ -78,8 +101,14 @@ struct Description {
     /// Absent in models written before confidences were calibrated: 1 for both decoders.
     #[serde(default)]
     confidence_temperatures: Temperatures,
+    /// The neural kind's network and vocabularies; its weights are in `neural.safetensors`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    neural: Option<NeuralDescription>,
     training: serde_json::Value,
 }
+
+/// The neural kind's weight file.
+const NEURAL_WEIGHTS: &str = "neural.safetensors";
 
 fn write_f32(path: &Path, values: &[f32]) -> Result<(), ModelError> {
     let bytes: Vec<u8> = values.iter().flat_map(|v| v.to_le_bytes()).collect();
@@ -132,13 +161,64 @@ fn read_description(dir: &Path) -> Result<Description, ModelError> {
     Ok(d)
 }
 
+/// The vocabulary sizes a neural configuration promises, and sizes a loader can afford.
+fn check_neural(config: &NeuralConfig, vocabulary: &Vocabulary) -> Result<(), String> {
+    let expect = |what: &str, found: usize, expected: usize| {
+        if found == expected {
+            Ok(())
+        } else {
+            Err(format!(
+                "neural {what} is {found}, the vocabulary gives {expected}"
+            ))
+        }
+    };
+    expect("word_rows", config.word_rows, vocabulary.words.len() + 2)?;
+    expect("tag_rows", config.tag_rows, vocabulary.tags.len() + 2)?;
+    expect(
+        "morph_rows",
+        config.morph_rows,
+        vocabulary.morph_features.len() + 1,
+    )?;
+    expect("labels", config.labels, vocabulary.labels.len())?;
+    if config.labels == 0 {
+        return Err("neural model without labels".to_string());
+    }
+    if !(8..=22).contains(&config.suffix_bits) {
+        return Err(format!(
+            "neural suffix_bits {} outside 8..=22",
+            config.suffix_bits
+        ));
+    }
+    // Each dimension at most 4096 and at least 1, at most 8 layers: enough for any model this
+    // build trains, and a bound on what a damaged file can make the loader allocate.
+    for (what, value) in [
+        ("word_dim", config.word_dim),
+        ("suffix_dim", config.suffix_dim),
+        ("tag_dim", config.tag_dim),
+        ("morph_dim", config.morph_dim),
+        ("hidden", config.hidden),
+        ("arc_dim", config.arc_dim),
+        ("label_dim", config.label_dim),
+    ] {
+        if !(1..=4096).contains(&value) {
+            return Err(format!("neural {what} {value} outside 1..=4096"));
+        }
+    }
+    if !(1..=8).contains(&config.layers) {
+        return Err(format!("neural layers {} outside 1..=8", config.layers));
+    }
+    Ok(())
+}
+
 impl Model {
     /// Reads `model.json` of a model directory (not the weights).
     pub fn summary(dir: &Path) -> Result<ModelSummary, ModelError> {
         let d = read_description(dir)?;
         Ok(ModelSummary {
             format: d.format,
+            kind: d.kind.clone(),
             settings: serde_json::json!({
+                "kind": d.kind,
                 "hash_bits": d.hash_bits,
                 "morphology": d.morphology,
                 "label_bits": d.label_bits,
@@ -153,42 +233,69 @@ impl Model {
         })
     }
 
-    /// The linear scorer (every model of this format has one).
-    pub fn linear(&self) -> &LinearScorer {
+    /// The linear scorer, when the model is of the linear kind.
+    pub fn linear(&self) -> Option<&LinearScorer> {
         match &self.scorer {
-            ArcScorer::Linear(linear) => linear,
+            ArcScorer::Linear(linear) => Some(linear),
+            ArcScorer::Neural(_) => None,
         }
     }
 
     /// The linear scorer, for training.
-    pub fn linear_mut(&mut self) -> &mut LinearScorer {
+    pub fn linear_mut(&mut self) -> Option<&mut LinearScorer> {
         match &mut self.scorer {
-            ArcScorer::Linear(linear) => linear,
+            ArcScorer::Linear(linear) => Some(linear),
+            ArcScorer::Neural(_) => None,
         }
     }
 
     pub fn save(&self, dir: &Path) -> Result<(), ModelError> {
-        let linear = self.linear();
         let io = |source| ModelError::Io {
             path: dir.display().to_string(),
             source,
         };
         std::fs::create_dir_all(dir).map_err(io)?;
-        let description = Description {
+        let mut description = Description {
             format: FORMAT.to_string(),
-            hash_bits: linear.features.hash_bits,
-            morphology: linear.features.morphology,
-            tags: linear.tags.clone(),
-            labels: linear.labels.clone(),
-            label_bits: linear.label_bits,
+            kind: self.scorer.kind().to_string(),
+            hash_bits: 0,
+            morphology: self.scorer.uses_morphology(),
+            tags: Vec::new(),
+            labels: self.scorer.labels().to_vec(),
+            label_bits: 0,
             tagger_tags: self.tagger.tags.clone(),
             tagger_bits: self.tagger.bits,
             morph_tags: self.morph_tagger.as_ref().map(|t| t.tags.clone()),
             default_decoder: self.default_decoder.name().to_string(),
             abbreviations: self.abbreviations.to_list(),
             confidence_temperatures: self.confidence_temperatures,
+            neural: None,
             training: self.training.clone(),
         };
+        match &self.scorer {
+            ArcScorer::Linear(linear) => {
+                description.hash_bits = linear.features.hash_bits;
+                description.tags = linear.tags.clone();
+                description.label_bits = linear.label_bits;
+                write_f32(&dir.join("arcs.f32"), &linear.arc_weights)?;
+                write_f32(&dir.join("labels.f32"), &linear.label_weights)?;
+            }
+            ArcScorer::Neural(neural) => {
+                description.tags = neural.vocabulary.tags.clone();
+                description.neural = Some(NeuralDescription {
+                    config: neural.config.clone(),
+                    words: neural.vocabulary.words.clone(),
+                    morph_features: neural.vocabulary.morph_features.clone(),
+                });
+                let path = dir.join(NEURAL_WEIGHTS);
+                neural
+                    .save_parameters(&path)
+                    .map_err(|e| ModelError::Format {
+                        path: path.display().to_string(),
+                        message: e.to_string(),
+                    })?;
+            }
+        }
         let json = serde_json::to_string_pretty(&description).map_err(|e| ModelError::Format {
             path: dir.display().to_string(),
             message: e.to_string(),
@@ -198,8 +305,6 @@ impl Model {
             path: path.display().to_string(),
             source,
         })?;
-        write_f32(&dir.join("arcs.f32"), &linear.arc_weights)?;
-        write_f32(&dir.join("labels.f32"), &linear.label_weights)?;
         write_f32(&dir.join("tagger.f32"), &self.tagger.weights)?;
         if let Some(morph) = &self.morph_tagger {
             write_f32(&dir.join("morph.f32"), &morph.weights)?;
@@ -213,11 +318,8 @@ impl Model {
             path: dir.join("model.json").display().to_string(),
             message,
         };
-        if !(10..=30).contains(&d.hash_bits)
-            || !(10..=30).contains(&d.label_bits)
-            || !(10..=30).contains(&d.tagger_bits)
-        {
-            return Err(format_error("hash bits outside 10..=30".to_string()));
+        if !(10..=30).contains(&d.tagger_bits) {
+            return Err(format_error("tagger_bits outside 10..=30".to_string()));
         }
         if !d.confidence_temperatures.valid() {
             return Err(format_error(format!(
@@ -240,18 +342,65 @@ impl Model {
             }),
             None => None,
         };
+        let scorer = match (d.kind.as_str(), d.neural) {
+            ("linear", None) => {
+                if !(10..=30).contains(&d.hash_bits) || !(10..=30).contains(&d.label_bits) {
+                    return Err(format_error(
+                        "hash_bits and label_bits must lie in 10..=30".to_string(),
+                    ));
+                }
+                ArcScorer::Linear(LinearScorer {
+                    features: FeatureConfig {
+                        hash_bits: d.hash_bits,
+                        morphology: d.morphology,
+                    },
+                    arc_weights: read_f32(&dir.join("arcs.f32"), 1 << d.hash_bits)?,
+                    label_weights: read_f32(&dir.join("labels.f32"), 1 << d.label_bits)?,
+                    tags: d.tags,
+                    labels: d.labels,
+                    label_bits: d.label_bits,
+                })
+            }
+            ("neural", Some(neural)) => {
+                let vocabulary = Vocabulary {
+                    words: neural.words,
+                    tags: d.tags,
+                    morph_features: neural.morph_features,
+                    labels: d.labels,
+                };
+                check_neural(&neural.config, &vocabulary).map_err(format_error)?;
+                let path = dir.join(NEURAL_WEIGHTS);
+                let parameters =
+                    NeuralScorer::load_parameters(&neural.config, &path).map_err(|message| {
+                        ModelError::Format {
+                            path: path.display().to_string(),
+                            message,
+                        }
+                    })?;
+                ArcScorer::Neural(Box::new(NeuralScorer::new(
+                    neural.config,
+                    vocabulary,
+                    parameters,
+                )))
+            }
+            ("neural", None) => {
+                return Err(format_error(
+                    "kind \"neural\" without its \"neural\" description".to_string(),
+                ));
+            }
+            ("linear", Some(_)) => {
+                return Err(format_error(
+                    "kind \"linear\" with a \"neural\" description".to_string(),
+                ));
+            }
+            (other, _) => {
+                return Err(format_error(format!(
+                    "unknown kind {other:?}; this build reads \"linear\" and \"neural\""
+                )));
+            }
+        };
         Ok(Model {
-            scorer: ArcScorer::Linear(LinearScorer {
-                features: FeatureConfig {
-                    hash_bits: d.hash_bits,
-                    morphology: d.morphology,
-                },
-                arc_weights: read_f32(&dir.join("arcs.f32"), 1 << d.hash_bits)?,
-                label_weights: read_f32(&dir.join("labels.f32"), 1 << d.label_bits)?,
-                tags: d.tags,
-                labels: d.labels,
-                label_bits: d.label_bits,
-            }),
+            scorer,
             tagger,
             morph_tagger,
             default_decoder,

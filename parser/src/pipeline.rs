@@ -172,10 +172,10 @@ pub fn parse(
         confidences
     });
     let inventory = model.scorer.labels();
-    let labels = decoded
-        .heads
-        .arcs()
-        .map(|(m, head)| inventory[scored.best_label(head, m)].clone())
+    let labels = scored
+        .best_labels(&decoded.heads)
+        .into_iter()
+        .map(|l| inventory[l].clone())
         .collect();
     lap(observer, Stage::Label);
     drop(scored); // it borrows the tags

@@ -6,9 +6,10 @@
 //! never sees a decoder, and a decoder never sees a scorer; a new kind of scorer (a neural one,
 //! say) is a new variant of [`ArcScorer`] and touches nothing downstream.
 
-use crate::decode::ScoreMatrix;
+use crate::decode::{Heads, ScoreMatrix};
 use crate::features::{FeatureConfig, SentenceFeatures, TokenView};
 use crate::hashing::bucket;
+use crate::neural::NeuralScorer;
 use crate::perceptron::{best_class, prefetch};
 
 /// What a scorer reads of one sentence: word forms, their tags and morphology summaries (empty
@@ -26,6 +27,11 @@ pub trait ScoredSentence {
     fn arc_scores(&self) -> &ScoreMatrix;
     /// Index (into the scorer's label inventory) of the best label of the arc `head → modifier`.
     fn best_label(&self, head: usize, modifier: usize) -> usize;
+    /// Label ids of every arc of a tree (`[m - 1]` for word m); scorers that label faster
+    /// together override this.
+    fn best_labels(&self, heads: &Heads) -> Vec<usize> {
+        heads.arcs().map(|(m, h)| self.best_label(h, m)).collect()
+    }
 }
 
 /// The kinds of arc scorer a model can carry.
@@ -33,6 +39,8 @@ pub trait ScoredSentence {
 pub enum ArcScorer {
     /// Hashed first-order features with perceptron-trained weights.
     Linear(LinearScorer),
+    /// A BiLSTM encoder with biaffine arc and label scorers.
+    Neural(Box<NeuralScorer>),
 }
 
 impl ArcScorer {
@@ -40,6 +48,13 @@ impl ArcScorer {
     pub fn score<'a>(&'a self, sentence: TaggedSentence<'a>) -> Box<dyn ScoredSentence + 'a> {
         match self {
             ArcScorer::Linear(linear) => Box::new(linear.score(sentence)),
+            // Shapes were checked when the scorer was built or loaded; a tensor error here is a
+            // bug, not bad input.
+            ArcScorer::Neural(neural) => Box::new(
+                neural
+                    .score(sentence)
+                    .expect("neural scoring of a checked model"),
+            ),
         }
     }
 
@@ -47,6 +62,7 @@ impl ArcScorer {
     pub fn labels(&self) -> &[String] {
         match self {
             ArcScorer::Linear(linear) => &linear.labels,
+            ArcScorer::Neural(neural) => neural.labels(),
         }
     }
 
@@ -54,6 +70,15 @@ impl ArcScorer {
     pub fn uses_morphology(&self) -> bool {
         match self {
             ArcScorer::Linear(linear) => linear.features.morphology,
+            ArcScorer::Neural(_) => true,
+        }
+    }
+
+    /// The kind's name, as in model listings.
+    pub fn kind(&self) -> &'static str {
+        match self {
+            ArcScorer::Linear(_) => "linear",
+            ArcScorer::Neural(_) => "neural",
         }
     }
 }

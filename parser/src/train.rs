@@ -17,6 +17,7 @@ use crate::decode::{self, Algorithm, RootConstraint, is_projective};
 use crate::features::FeatureConfig;
 use crate::hashing::{bucket, mix};
 use crate::model::Model;
+use crate::neural::{self, NeuralError, train::NeuralOptions};
 use crate::perceptron::{self, Trainee, weight_table, weight_table_from};
 use crate::scorer::{ArcScorer, LinearScorer};
 use crate::tagger::Tagger;
@@ -120,8 +121,12 @@ pub struct EpochReport {
     pub train_tokens: usize,
     /// Dev UAS (percent, gold tags) with the averaged weights so far, if a dev set was given.
     pub dev_uas: Option<f64>,
-    /// Dev LAS (percent, gold tags), alongside `dev_uas`.
+    /// Dev LAS (percent), alongside `dev_uas`.
     pub dev_las: Option<f64>,
+    /// Mean training loss per word (the neural kind; the linear kind counts errors instead).
+    pub loss: Option<f64>,
+    /// Whether the dev scores are with predicted tags (the neural kind) or gold ones.
+    pub dev_tags_predicted: bool,
 }
 
 fn sorted_unique(values: impl Iterator<Item = String>) -> Vec<String> {
@@ -131,14 +136,23 @@ fn sorted_unique(values: impl Iterator<Item = String>) -> Vec<String> {
     v
 }
 
-/// Trains a full model. `progress` is called after every epoch and stage.
-pub fn train(
+/// What both kinds of model train on: the decoder, the taggers, and the training set with tags
+/// as they will be predicted at parse time.
+struct Prepared {
+    decoder: Algorithm,
+    tags: Vec<String>,
+    labels: Vec<String>,
+    tagger: Tagger,
+    morph_tagger: Option<Tagger>,
+    /// Jackknifed when `jackknife_folds` > 1, else the gold-tagged input.
+    train: Vec<Example>,
+}
+
+fn prepare(
     train: &[Example],
-    dev: &[Example],
     options: &TrainOptions,
     progress: &mut dyn FnMut(&str, Option<&EpochReport>),
-) -> Model {
-    let threads = options.threads.max(1);
+) -> Prepared {
     let decoder = options.decoder.unwrap_or_else(|| {
         if train.iter().all(|e| is_projective(&e.heads)) {
             Algorithm::Projective
@@ -174,17 +188,102 @@ pub fn train(
             options.tagger_bits,
         )
     });
-    let jackknifed;
-    let train: &[Example] = if options.jackknife_folds > 1 {
+    let train = if options.jackknife_folds > 1 {
         progress(
             &format!("jackknifing tags over {} folds", options.jackknife_folds),
             None,
         );
-        jackknifed = jackknife(train, options);
-        &jackknifed
+        jackknife(train, options)
     } else {
-        train
+        train.to_vec()
     };
+    Prepared {
+        decoder,
+        tags,
+        labels,
+        tagger,
+        morph_tagger,
+        train,
+    }
+}
+
+/// Trains a model of the neural kind ([`crate::neural`]): the same taggers and jackknifed
+/// training tags as the linear kind, then the network, then the confidence temperatures.
+/// `progress` is called after every epoch and stage; the epoch reports carry the training loss
+/// and dev scores with predicted tags.
+pub fn train_neural(
+    train: &[Example],
+    dev: &[Example],
+    options: &TrainOptions,
+    neural_options: &NeuralOptions,
+    progress: &mut dyn FnMut(&str, Option<&EpochReport>),
+) -> Result<Model, NeuralError> {
+    let threads = options.threads.max(1);
+    let prepared = prepare(train, options, progress);
+    let tag_as_in_use = |e: &Example| Example {
+        tags: prepared.tagger.tag(&e.forms),
+        morph: prepared
+            .morph_tagger
+            .as_ref()
+            .map_or_else(|| e.morph.clone(), |t| t.tag(&e.forms)),
+        ..e.clone()
+    };
+    let dev_tagged: Vec<Example> = dev.iter().map(tag_as_in_use).collect();
+    progress("training the network", None);
+    let scorer = neural::train::train(
+        &prepared.train,
+        &dev_tagged,
+        prepared.decoder,
+        neural_options,
+        threads,
+        &mut |epoch| {
+            progress(
+                "epoch",
+                Some(&EpochReport {
+                    epoch: epoch.epoch,
+                    train_errors: 0,
+                    train_tokens: 0,
+                    loss: Some(epoch.loss),
+                    dev_uas: epoch.dev_uas,
+                    dev_las: epoch.dev_las,
+                    dev_tags_predicted: true,
+                }),
+            )
+        },
+    )?;
+    let mut model = Model {
+        scorer: ArcScorer::Neural(Box::new(scorer)),
+        tagger: prepared.tagger,
+        morph_tagger: prepared.morph_tagger,
+        default_decoder: prepared.decoder,
+        abbreviations: Abbreviations::learn(train.iter().map(|e| e.forms.as_slice())),
+        confidence_temperatures: calibration::Temperatures::default(),
+        training: serde_json::Value::Null,
+    };
+    if !dev.is_empty() {
+        progress("fitting the confidence temperatures on dev", None);
+        model.confidence_temperatures = fit_confidence_temperatures(&model, dev, threads);
+    }
+    Ok(model)
+}
+
+/// Trains a full model of the linear kind. `progress` is called after every epoch and stage.
+pub fn train(
+    train: &[Example],
+    dev: &[Example],
+    options: &TrainOptions,
+    progress: &mut dyn FnMut(&str, Option<&EpochReport>),
+) -> Model {
+    let threads = options.threads.max(1);
+    let Prepared {
+        decoder,
+        tags,
+        labels,
+        tagger,
+        morph_tagger,
+        train: prepared_train,
+    } = prepare(train, options, progress);
+    let train: &[Example] = &prepared_train;
     let mut model = Model {
         scorer: ArcScorer::Linear(LinearScorer {
             features: options.features,
@@ -204,6 +303,7 @@ pub fn train(
     let label_index = |label: &str| {
         model
             .linear()
+            .expect("a linear model in training")
             .labels
             .binary_search_by(|l| l.as_str().cmp(label))
             .unwrap_or(0)
@@ -288,10 +388,14 @@ pub fn train(
             *sum += x;
         }
         let scale = 1.0 / epoch as f32;
-        model.linear_mut().arc_weights =
-            weight_table_from(average_sum_arcs.iter().map(|x| x * scale));
-        model.linear_mut().label_weights =
-            weight_table_from(average_sum_labels.iter().map(|x| x * scale));
+        model
+            .linear_mut()
+            .expect("a linear model in training")
+            .arc_weights = weight_table_from(average_sum_arcs.iter().map(|x| x * scale));
+        model
+            .linear_mut()
+            .expect("a linear model in training")
+            .label_weights = weight_table_from(average_sum_labels.iter().map(|x| x * scale));
         let dev_scores = (!dev.is_empty()).then(|| dev_attachment(&model, dev, decoder));
         let dev_uas = dev_scores.map(|(uas, _)| uas);
         let report = EpochReport {
@@ -300,14 +404,30 @@ pub fn train(
             train_tokens,
             dev_uas,
             dev_las: dev_scores.map(|(_, las)| las),
+            loss: None,
+            dev_tags_predicted: false,
         };
         progress("epoch", Some(&report));
         if let Some(uas) = dev_uas {
             if best.as_ref().is_none_or(|(b, _, _)| uas > *b) {
                 best = Some((
                     uas,
-                    weight_table_from(model.linear().arc_weights.iter().copied()),
-                    weight_table_from(model.linear().label_weights.iter().copied()),
+                    weight_table_from(
+                        model
+                            .linear()
+                            .expect("a linear model in training")
+                            .arc_weights
+                            .iter()
+                            .copied(),
+                    ),
+                    weight_table_from(
+                        model
+                            .linear()
+                            .expect("a linear model in training")
+                            .label_weights
+                            .iter()
+                            .copied(),
+                    ),
                 ));
                 since_best = 0;
             } else {
@@ -323,8 +443,14 @@ pub fn train(
         }
     }
     if let Some((_, arcs, labels)) = best {
-        model.linear_mut().arc_weights = arcs;
-        model.linear_mut().label_weights = labels;
+        model
+            .linear_mut()
+            .expect("a linear model in training")
+            .arc_weights = arcs;
+        model
+            .linear_mut()
+            .expect("a linear model in training")
+            .label_weights = labels;
     }
     if !dev.is_empty() {
         progress("fitting the confidence temperatures on dev", None);
@@ -439,7 +565,7 @@ fn train_shard(
     decoder: Algorithm,
     update: Update,
 ) -> (Trainee, Trainee, usize, usize) {
-    let linear = model.linear();
+    let linear = model.linear().expect("a linear model in training");
     let bits = linear.features.hash_bits;
     let label_bits = linear.label_bits;
     let mut arc_trainee = Trainee::from_weights(bits, arcs);

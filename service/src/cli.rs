@@ -251,6 +251,14 @@ pub enum UpdateArg {
     PassiveAggressive,
 }
 
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum KindArg {
+    /// Hashed arc features with perceptron-trained weights: fast to train and to parse.
+    Linear,
+    /// A BiLSTM encoder with biaffine arc and label scorers: more accurate, slower.
+    Neural,
+}
+
 #[derive(Debug, Args)]
 pub struct TrainOptions {
     /// Training treebank (CoNLL-U).
@@ -262,9 +270,22 @@ pub struct TrainOptions {
     /// Output model directory.
     #[arg(long)]
     pub out: PathBuf,
-    /// Passes over the training data (fewer when the dev score stops improving).
-    #[arg(long, default_value_t = 10)]
-    pub epochs: usize,
+    /// Kind of model to train.
+    #[arg(long, value_enum, default_value = "linear")]
+    pub kind: KindArg,
+    /// Most passes over the training data; fewer when the dev score stops improving (default:
+    /// 10 for the linear kind, 30 for the neural kind).
+    #[arg(long)]
+    pub epochs: Option<usize>,
+    /// Neural kind: LSTM state size per direction.
+    #[arg(long, default_value_t = 200, value_parser = clap::value_parser!(u32).range(8..=1024))]
+    pub hidden: u32,
+    /// Neural kind: stacked BiLSTM layers.
+    #[arg(long, default_value_t = 2, value_parser = clap::value_parser!(u32).range(1..=4))]
+    pub layers: u32,
+    /// Neural kind: sentences per mini-batch.
+    #[arg(long, default_value_t = 32, value_parser = clap::value_parser!(u32).range(1..=1024))]
+    pub batch_sentences: u32,
     /// Seed of the training order; the same seed and thread count give the same model.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,

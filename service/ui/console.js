@@ -150,6 +150,9 @@ function renderModels() {
       model.serving
         ? el("span", {}, `loaded ${formatTime(model.serving.loaded_at_unix_ms)} in ${formatSeconds(model.serving.load_seconds)}`)
         : null,
+      model.serving && model.serving.kind
+        ? el("span", { class: "pill", "data-serving-kind": model.serving.kind }, model.serving.kind)
+        : null,
       el("span", {}, "live → ", el("code", {}, model.live || "none")),
       servingVersion && model.live && servingVersion !== model.live
         ? el("span", { class: "pill warn" }, "switching to live…")
@@ -179,6 +182,7 @@ function renderModels() {
           "tr",
           { class: v.version === servingVersion ? "is-serving" : null },
           el("td", { class: "mono" }, v.version),
+          el("td", { class: "kind" }, v.kind || "linear"),
           el("td", {}, v.created ? formatTime(Date.parse(v.created)) : ""),
           el("td", { class: "num" }, formatBytes(v.size_bytes || 0)),
           el("td", {}, (v.aliases || []).join(", ")),
@@ -208,7 +212,7 @@ function renderModels() {
         "table",
         {},
         el("caption", { class: "hint" }, `${(model.versions || []).length} version(s), newest first`),
-        el("thead", {}, el("tr", {}, el("th", {}, "version"), el("th", {}, "published"), el("th", { class: "num" }, "size"),
+        el("thead", {}, el("tr", {}, el("th", {}, "version"), el("th", {}, "kind"), el("th", {}, "published"), el("th", { class: "num" }, "size"),
           el("th", {}, "aliases"), el("th", {}, "scores"), state.adminRoutes ? el("th", {}, "") : null)),
         el("tbody", {}, rows),
       ),

@@ -4,6 +4,7 @@
 mod brute_force;
 mod conllu_errors;
 mod counting;
+mod neural;
 mod properties;
 mod reproducibility;
 mod stability;

@@ -31,7 +31,7 @@ fn train_demo(seed: u64, threads: usize) -> Model {
 
 /// Every weight table of a model as raw bits, so that NaN and signed zeros compare exactly.
 fn weight_bits(model: &Model) -> Vec<Vec<u32>> {
-    let linear = model.linear();
+    let linear = model.linear().expect("a linear model");
     let mut tables = vec![
         &linear.arc_weights,
         &linear.label_weights,

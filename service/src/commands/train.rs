@@ -4,6 +4,8 @@ use std::io::IsTerminal;
 use std::time::Instant;
 
 use arcwright_parser::features::FeatureConfig;
+use arcwright_parser::neural::Shape;
+use arcwright_parser::neural::train::NeuralOptions;
 use arcwright_parser::train::{self, Example, TrainOptions};
 
 use super::{Failure, peak_memory_mib, read_treebank};
@@ -39,8 +41,10 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
         .threads
         .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()))
         .max(1);
+    let neural = options.kind == cli::KindArg::Neural;
+    let epochs = options.epochs.unwrap_or(if neural { 30 } else { 10 });
     let settings = TrainOptions {
-        epochs: options.epochs,
+        epochs,
         seed: options.seed,
         threads,
         decoder: options.decoder.map(Into::into),
@@ -62,7 +66,8 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
         ..TrainOptions::default()
     };
     eprintln!(
-        "training on {} sentences ({} dev), {} threads, seed {}",
+        "training a {} model on {} sentences ({} dev), {} threads, seed {}",
+        if neural { "neural" } else { "linear" },
         train_set.len(),
         dev_set.len(),
         threads,
@@ -71,7 +76,7 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
     // A progress bar on a terminal; one plain line per epoch otherwise (CI, job logs).
     let terminal = std::io::stderr().is_terminal();
     let bar = if terminal {
-        indicatif::ProgressBar::new(options.epochs as u64)
+        indicatif::ProgressBar::new(epochs as u64)
     } else {
         indicatif::ProgressBar::hidden()
     };
@@ -90,20 +95,31 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
             eprintln!("{line}");
         }
     };
-    let mut model = train::train(&train_set, &dev_set, &settings, &mut |stage, report| {
+    let mut progress = |stage: &str, report: Option<&train::EpochReport>| {
         let Some(r) = report else {
             say(stage.to_string());
             return;
         };
+        let tags = if r.dev_tags_predicted {
+            "predicted tags"
+        } else {
+            "gold tags"
+        };
         let dev = match (r.dev_uas, r.dev_las) {
-            (Some(uas), Some(las)) => format!(", dev UAS {uas:.2}% LAS {las:.2}% (gold tags)"),
+            (Some(uas), Some(las)) => format!(", dev UAS {uas:.2}% LAS {las:.2}% ({tags})"),
             _ => String::new(),
         };
+        let train = match r.loss {
+            Some(loss) => format!("train loss {loss:.4}"),
+            None => format!(
+                "train errors {:.2}%",
+                100.0 * r.train_errors as f64 / r.train_tokens.max(1) as f64
+            ),
+        };
         say(format!(
-            "epoch {:>2}/{}: train errors {:.2}%{dev}  [{:.1} s]",
+            "epoch {:>2}/{}: {train}{dev}  [{:.1} s]",
             r.epoch,
-            options.epochs,
-            100.0 * r.train_errors as f64 / r.train_tokens.max(1) as f64,
+            epochs,
             started.elapsed().as_secs_f64()
         ));
         bar.set_message(
@@ -111,17 +127,41 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
                 .map_or(String::new(), |u| format!("dev UAS {u:.2}%")),
         );
         bar.inc(1);
-    });
+    };
+    let neural_settings = NeuralOptions {
+        shape: Shape {
+            hidden: options.hidden as usize,
+            layers: options.layers as usize,
+            ..Shape::default()
+        },
+        epochs,
+        seed: options.seed,
+        batch_sentences: options.batch_sentences as usize,
+        ..NeuralOptions::default()
+    };
+    let mut model = if neural {
+        train::train_neural(
+            &train_set,
+            &dev_set,
+            &settings,
+            &neural_settings,
+            &mut progress,
+        )
+        .map_err(Failure::runtime)?
+    } else {
+        train::train(&train_set, &dev_set, &settings, &mut progress)
+    };
     bar.finish_and_clear();
     model.training = serde_json::json!({
         "train_file": options.train.display().to_string(),
         "train_fingerprint_fnv64": format!("{fingerprint:016x}"),
         "train_sentences": train_set.len(),
-        "epochs": options.epochs,
+        "kind": model.scorer.kind(),
+        "epochs": epochs,
         "seed": options.seed,
         "threads": threads,
         "decoder": model.default_decoder.name(),
-        "update": format!("{:?}", settings.update),
+        "update": if neural { "AdamW".to_string() } else { format!("{:?}", settings.update) },
         "jackknife_folds": settings.jackknife_folds,
     });
     model.save(&options.out).map_err(Failure::runtime)?;

@@ -290,6 +290,10 @@ impl ModelAdmin for AdminService {
                             .unwrap_or_default()
                             .to_string(),
                         is_default: m["default"].as_bool().unwrap_or(false),
+                        serving_kind: m["serving"]["kind"]
+                            .as_str()
+                            .unwrap_or_default()
+                            .to_string(),
                         versions: m["versions"]
                             .as_array()
                             .map(|vs| {
@@ -300,6 +304,7 @@ impl ModelAdmin for AdminService {
                                             .unwrap_or_default()
                                             .to_string(),
                                         size_bytes: v["size_bytes"].as_u64().unwrap_or(0),
+                                        kind: v["kind"].as_str().unwrap_or_default().to_string(),
                                         created: v["created"]
                                             .as_str()
                                             .unwrap_or_default()

@@ -107,6 +107,8 @@ pub async fn models_status(state: &AppState) -> Result<serde_json::Value, ApiErr
                 serde_json::json!({
                     "version": v.manifest.version, "size_bytes": v.manifest.size(), "created": v.manifest.created,
                     "aliases": v.aliases, "scores": v.manifest.scores,
+                    // Models published before there was a second kind record none: linear.
+                    "kind": v.manifest.settings.get("kind").and_then(|k| k.as_str()).unwrap_or("linear"),
                 })
             })
             .collect();
@@ -116,6 +118,7 @@ pub async fn models_status(state: &AppState) -> Result<serde_json::Value, ApiErr
                 "load_seconds": s.load_seconds,
                 "loaded_at_unix_ms": s.loaded_at.duration_since(std::time::UNIX_EPOCH).map_or(0, |d| d.as_millis()),
                 "default_decoder": s.model.default_decoder.name(),
+                "kind": s.model.scorer.kind(),
             })
         });
         models.push(serde_json::json!({
