@@ -9,7 +9,7 @@ use std::time::Instant;
 use crate::decode::{self, Algorithm, Heads, RootConstraint, ScoreMatrix};
 use crate::marginals::{self, matrix_tree::Effort};
 use crate::model::Model;
-use crate::scorer::TaggedSentence;
+use crate::scorer::{ScoredSentence, TaggedSentence};
 
 /// The largest extra work one sentence's confidences may take to repair cancelled Matrix-Tree
 /// columns (multiply-adds; about 10 ms on a 2-core development machine). Peaked scores on long
@@ -88,6 +88,8 @@ fn tag(
 ) -> (Vec<String>, Vec<String>) {
     let tags: Vec<String> = match tags {
         Some(t) => t.to_vec(),
+        // Filled in from the scorer after scoring.
+        None if model.scorer.tags_itself() => Vec::new(),
         None => model.tagger.tag(forms),
     };
     // Morphology is tagged only for a scorer that reads it.
@@ -120,21 +122,105 @@ pub fn parse(
     options: &ParseOptions,
     observer: &mut dyn StageObserver,
 ) -> Parsed {
+    let started = Instant::now();
+    let (tags, morph) = tag(model, forms, tags, morph);
+    let tagged = Instant::now();
+    observer.stage_done(Stage::Tag, tagged.duration_since(started).as_secs_f64());
+    let scored = model.scorer.score(TaggedSentence {
+        forms,
+        tags: &tags,
+        morph: &morph,
+    });
+    observer.stage_done(Stage::Score, tagged.elapsed().as_secs_f64());
+    let (predicted_tags, finished) = finish(model, scored.as_ref(), options, observer);
+    drop(scored); // it borrows the tags
+    finished.with_tags(predicted_tags.unwrap_or(tags))
+}
+
+/// One sentence for [`parse_many`]: its words, and its tags when the caller has them.
+#[derive(Debug, Clone, Copy)]
+pub struct Input<'a> {
+    pub forms: &'a [String],
+    pub tags: Option<&'a [String]>,
+}
+
+/// Parses several sentences, each as [`parse`] would, but scores them together when the model's
+/// scorer is faster that way (the neural kind: one padded batch through the encoder). Each
+/// sentence's observer is told an equal share of the joint scoring time. Results in input order.
+pub fn parse_many(
+    model: &Model,
+    inputs: &[Input<'_>],
+    options: &ParseOptions,
+    observers: &mut [&mut dyn StageObserver],
+) -> Vec<Parsed> {
+    assert_eq!(inputs.len(), observers.len(), "one observer per sentence");
+    let mut tagged = Vec::with_capacity(inputs.len());
+    for (input, observer) in inputs.iter().zip(observers.iter_mut()) {
+        let started = Instant::now();
+        tagged.push(tag(model, input.forms, input.tags, None));
+        observer.stage_done(Stage::Tag, started.elapsed().as_secs_f64());
+    }
+    let sentences: Vec<TaggedSentence<'_>> = inputs
+        .iter()
+        .zip(&tagged)
+        .map(|(input, (tags, morph))| TaggedSentence {
+            forms: input.forms,
+            tags,
+            morph,
+        })
+        .collect();
+    let started = Instant::now();
+    let scored = model.scorer.score_many(&sentences);
+    let share = started.elapsed().as_secs_f64() / inputs.len().max(1) as f64;
+    scored
+        .iter()
+        .zip(observers.iter_mut())
+        .zip(&tagged)
+        .map(|((scored, observer), (tags, _))| {
+            observer.stage_done(Stage::Score, share);
+            let (predicted_tags, finished) = finish(model, scored.as_ref(), options, *observer);
+            finished.with_tags(predicted_tags.unwrap_or_else(|| tags.clone()))
+        })
+        .collect()
+}
+
+/// A parse before its tags are known (they may come from the scorer).
+struct Untagged {
+    heads: Heads,
+    labels: Vec<String>,
+    decoder: Algorithm,
+    score: f64,
+    confidences: Option<Vec<Option<f64>>>,
+}
+
+impl Untagged {
+    fn with_tags(self, tags: Vec<String>) -> Parsed {
+        Parsed {
+            tags,
+            heads: self.heads,
+            labels: self.labels,
+            decoder: self.decoder,
+            score: self.score,
+            confidences: self.confidences,
+        }
+    }
+}
+
+/// Decode → confidences → labels for a scored sentence; also the tags the scorer predicted, if
+/// it tags.
+fn finish(
+    model: &Model,
+    scored: &dyn ScoredSentence,
+    options: &ParseOptions,
+    observer: &mut dyn StageObserver,
+) -> (Option<Vec<String>>, Untagged) {
     let mut clock = Instant::now();
     let mut lap = |observer: &mut dyn StageObserver, stage: Stage| {
         let now = Instant::now();
         observer.stage_done(stage, now.duration_since(clock).as_secs_f64());
         clock = now;
     };
-    let (tags, morph) = tag(model, forms, tags, morph);
-    lap(observer, Stage::Tag);
-    let scored = model.scorer.score(TaggedSentence {
-        forms,
-        tags: &tags,
-        morph: &morph,
-    });
     let scores = scored.arc_scores();
-    lap(observer, Stage::Score);
     let decoder = options.decoder.unwrap_or(model.default_decoder);
     let decoded = decode::decode(scores, decoder, RootConstraint::SingleRoot);
     lap(observer, Stage::Decode);
@@ -178,13 +264,14 @@ pub fn parse(
         .map(|l| inventory[l].clone())
         .collect();
     lap(observer, Stage::Label);
-    drop(scored); // it borrows the tags
-    Parsed {
-        tags,
-        heads: decoded.heads,
-        labels,
-        decoder,
-        score: decoded.score,
-        confidences,
-    }
+    (
+        scored.predicted_tags(),
+        Untagged {
+            heads: decoded.heads,
+            labels,
+            decoder,
+            score: decoded.score,
+            confidences,
+        },
+    )
 }

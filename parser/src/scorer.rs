@@ -27,6 +27,10 @@ pub trait ScoredSentence {
     fn arc_scores(&self) -> &ScoreMatrix;
     /// Index (into the scorer's label inventory) of the best label of the arc `head → modifier`.
     fn best_label(&self, head: usize, modifier: usize) -> usize;
+    /// Tags predicted while scoring, for a scorer that tags (the neural kind with a tag head).
+    fn predicted_tags(&self) -> Option<Vec<String>> {
+        None
+    }
     /// Label ids of every arc of a tree (`[m - 1]` for word m); scorers that label faster
     /// together override this.
     fn best_labels(&self, heads: &Heads) -> Vec<usize> {
@@ -58,6 +62,28 @@ impl ArcScorer {
         }
     }
 
+    /// Scores several sentences (together, for a kind that is faster that way).
+    pub fn score_many<'a>(
+        &'a self,
+        sentences: &[TaggedSentence<'a>],
+    ) -> Vec<Box<dyn ScoredSentence + 'a>> {
+        match self {
+            ArcScorer::Linear(_) => sentences.iter().map(|s| self.score(*s)).collect(),
+            // Shapes were checked when the scorer was built or loaded.
+            ArcScorer::Neural(neural) => neural
+                .score_batch(sentences)
+                .expect("neural scoring of a checked model")
+                .into_iter()
+                .map(|s| Box::new(s) as Box<dyn ScoredSentence + 'a>)
+                .collect(),
+        }
+    }
+
+    /// Whether [`ArcScorer::score_many`] is faster than scoring one sentence at a time.
+    pub fn scores_faster_together(&self) -> bool {
+        matches!(self, ArcScorer::Neural(_))
+    }
+
     /// The label inventory that [`ScoredSentence::best_label`] indexes.
     pub fn labels(&self) -> &[String] {
         match self {
@@ -71,6 +97,14 @@ impl ArcScorer {
         match self {
             ArcScorer::Linear(linear) => linear.features.morphology,
             ArcScorer::Neural(_) => true,
+        }
+    }
+
+    /// Whether scoring predicts the tags itself (so the tagger need not run).
+    pub fn tags_itself(&self) -> bool {
+        match self {
+            ArcScorer::Linear(_) => false,
+            ArcScorer::Neural(neural) => neural.config.tag_head,
         }
     }
 

@@ -229,9 +229,23 @@ pub fn train_neural(
         ..e.clone()
     };
     let dev_tagged: Vec<Example> = dev.iter().map(tag_as_in_use).collect();
+    // A tag head learns the gold tags; the morphology stays as predicted.
+    let training: Vec<Example> = if neural_options.shape.tag_head {
+        prepared
+            .train
+            .iter()
+            .zip(train)
+            .map(|(predicted, gold)| Example {
+                tags: gold.tags.clone(),
+                ..predicted.clone()
+            })
+            .collect()
+    } else {
+        prepared.train.clone()
+    };
     progress("training the network", None);
     let scorer = neural::train::train(
-        &prepared.train,
+        &training,
         &dev_tagged,
         prepared.decoder,
         neural_options,

@@ -5,8 +5,9 @@
 //!
 //! Inputs per word: an embedding of its lowercased form when the form was frequent enough in
 //! training (else a shared unknown row), the sum of hashed embeddings of its suffixes of 1 to 5
-//! characters (which carry most of the morphology of a suffixing language, and give rare and
-//! unseen words a representation), an embedding of its predicted tag, and the sum of embeddings
+//! characters and prefixes of 3 and 4 (suffixes carry most of the morphology of a suffixing
+//! language, prefixes its stem; together they give rare and unseen words a representation), an
+//! embedding of its predicted tag, and the sum of embeddings
 //! of its predicted morphological features.
 
 pub mod lstm;
@@ -24,7 +25,7 @@ use crate::hashing::{bucket, hash_str, mix};
 use crate::scorer::{ScoredSentence, TaggedSentence};
 use crate::text;
 
-use network::{BatchInputs, MORPH_SLOTS, Network, Parameters, SUFFIXES};
+use network::{AFFIXES, BatchInputs, MORPH_SLOTS, Network, Parameters};
 
 /// Word and tag ids 0 and 1 are reserved.
 const UNKNOWN: u32 = 0;
@@ -50,6 +51,11 @@ pub struct NeuralConfig {
     pub arc_dim: usize,
     pub label_dim: usize,
     pub labels: usize,
+    /// Tags are predicted by a second head on the encoder's first layer (multi-task), and the
+    /// encoder reads no tags (its tag input is the unknown tag throughout). Absent in models
+    /// that read the linear tagger's tags: false.
+    #[serde(default)]
+    pub tag_head: bool,
 }
 
 impl NeuralConfig {
@@ -70,6 +76,8 @@ pub struct Shape {
     pub layers: usize,
     pub arc_dim: usize,
     pub label_dim: usize,
+    /// Predict tags with a second head on the encoder instead of reading the tagger's.
+    pub tag_head: bool,
 }
 
 impl Default for Shape {
@@ -84,6 +92,7 @@ impl Default for Shape {
             layers: 2,
             arc_dim: 256,
             label_dim: 96,
+            tag_head: false,
         }
     }
 }
@@ -170,7 +179,7 @@ pub fn batch_inputs(sentences: &[&SentenceIds]) -> BatchInputs {
         lengths: sentences.iter().map(|s| s.len()).collect(),
         words: Vec::with_capacity(batch * positions),
         tags: Vec::with_capacity(batch * positions),
-        suffixes: Vec::with_capacity(batch * positions * SUFFIXES),
+        suffixes: Vec::with_capacity(batch * positions * AFFIXES),
         morph: Vec::with_capacity(batch * positions * MORPH_SLOTS),
     };
     for s in sentences {
@@ -191,7 +200,7 @@ pub fn batch_inputs(sentences: &[&SentenceIds]) -> BatchInputs {
             s.suffixes
                 .iter()
                 .copied()
-                .chain(std::iter::repeat_n(0, pad * SUFFIXES)),
+                .chain(std::iter::repeat_n(0, pad * AFFIXES)),
         );
         inputs.morph.extend(
             s.morph
@@ -225,29 +234,37 @@ impl NeuralScorer {
         let mut ids = SentenceIds {
             words: Vec::with_capacity(n),
             tags: Vec::with_capacity(n),
-            suffixes: Vec::with_capacity(n * SUFFIXES),
+            suffixes: Vec::with_capacity(n * AFFIXES),
             morph: Vec::with_capacity(n * MORPH_SLOTS),
         };
         let bits = self.config.suffix_bits;
         ids.words.push(ROOT);
         ids.tags.push(ROOT);
-        for k in 1..=SUFFIXES {
+        for k in 1..=AFFIXES {
             ids.suffixes
                 .push(bucket(mix(k as u64, hash_str(ROOT_FORM)), bits) as u32);
         }
         ids.morph.extend([0; MORPH_SLOTS]);
         for (i, form) in sentence.forms.iter().enumerate() {
             let lower = text::lowercase(form);
-            for k in 1..=SUFFIXES {
+            for k in 1..=5 {
                 let suffix = text::suffix(&lower, k);
                 ids.suffixes
                     .push(bucket(mix(k as u64, hash_str(suffix)), bits) as u32);
             }
+            for (k, chars) in [(6u64, 3), (7, 4)] {
+                let prefix = text::prefix(&lower, chars);
+                ids.suffixes
+                    .push(bucket(mix(k, hash_str(prefix)), bits) as u32);
+            }
             ids.words
                 .push(self.index.words.get(&lower).copied().unwrap_or(UNKNOWN));
             let tag = sentence.tags.get(i).map_or("", String::as_str);
-            ids.tags
-                .push(self.index.tags.get(tag).copied().unwrap_or(UNKNOWN));
+            ids.tags.push(if self.config.tag_head {
+                UNKNOWN
+            } else {
+                self.index.tags.get(tag).copied().unwrap_or(UNKNOWN)
+            });
             let morph = sentence.morph.get(i).map_or("_", String::as_str);
             let mut slots = [0u32; MORPH_SLOTS];
             for (slot, feature) in slots
@@ -284,6 +301,10 @@ impl NeuralScorer {
         let arcs = network.arc_scores(&encoded)?; // (batch, modifier, head)
         let t = inputs.positions;
         let arcs: Vec<f32> = arcs.flatten_all()?.to_vec1()?;
+        let tag_ids: Option<Vec<u32>> = match &encoded.tag_scores {
+            Some(t) => Some(t.argmax(D::Minus1)?.flatten_all()?.to_vec1()?),
+            None => None,
+        };
         let label_dependent = encoded.label_dependent.flatten_to(1)?;
         let label_head = encoded.label_head.flatten_to(1)?;
         let mut out = Vec::with_capacity(sentences.len());
@@ -297,9 +318,23 @@ impl NeuralScorer {
             }
             let scores = ScoreMatrix::from_row_major(len - 1, flat)
                 .map_err(|e| NeuralError(candle_core::Error::Msg(e.to_string())))?;
+            let tags = tag_ids.as_ref().map(|ids| {
+                (1..len)
+                    .map(|m| {
+                        let id = ids[s * t + m] as usize;
+                        let tag = id
+                            .checked_sub(RESERVED)
+                            .and_then(|i| self.vocabulary.tags.get(i));
+                        tag.or(self.vocabulary.tags.first())
+                            .cloned()
+                            .unwrap_or_default()
+                    })
+                    .collect()
+            });
             out.push(NeuralSentence {
                 scorer: self,
                 scores,
+                tags,
                 label_dependent: label_dependent.narrow(0, s * t, len)?,
                 label_head: label_head.narrow(0, s * t, len)?,
             });
@@ -359,6 +394,8 @@ impl NeuralScorer {
 pub struct NeuralSentence<'a> {
     scorer: &'a NeuralScorer,
     pub scores: ScoreMatrix,
+    /// The tag head's tags, when the model has one.
+    pub tags: Option<Vec<String>>,
     /// `(positions, label_dim)` rows of the label MLPs.
     label_dependent: Tensor,
     label_head: Tensor,
@@ -399,6 +436,10 @@ impl ScoredSentence for NeuralSentence<'_> {
             .ok()
             .and_then(|l| l.first().copied())
             .unwrap_or(0)
+    }
+
+    fn predicted_tags(&self) -> Option<Vec<String>> {
+        self.tags.clone()
     }
 
     fn best_labels(&self, heads: &Heads) -> Vec<usize> {

@@ -30,14 +30,15 @@ pub struct BatchInputs {
     pub lengths: Vec<usize>,
     pub words: Vec<u32>,
     pub tags: Vec<u32>,
-    /// `SUFFIXES` hashed suffix ids per position.
+    /// `AFFIXES` hashed affix ids per position.
     pub suffixes: Vec<u32>,
     /// `MORPH_SLOTS` morphology feature ids per position.
     pub morph: Vec<u32>,
 }
 
-/// Hashed suffixes per token (lengths 1 to 5 of the lowercased form).
-pub const SUFFIXES: usize = 5;
+/// Hashed affixes per token: the suffixes of 1 to 5 characters and the prefixes of 3 and 4
+/// characters of the lowercased form (a suffixing language's stem starts the word).
+pub const AFFIXES: usize = 7;
 /// Morphological features per token (Case and Possessive).
 pub const MORPH_SLOTS: usize = 2;
 
@@ -48,6 +49,9 @@ pub struct Encoded {
     pub arc_head: Tensor,
     pub label_dependent: Tensor,
     pub label_head: Tensor,
+    /// Tag scores `(batch, positions, tag_rows)` from the first layer, when the model has a tag
+    /// head.
+    pub tag_scores: Option<Tensor>,
 }
 
 /// Dropout masks drawn from our own seeded generator (the tensor library's CPU generator cannot
@@ -185,6 +189,20 @@ pub fn initial(config: &NeuralConfig, seed: u64, dtype: DType) -> Result<Paramet
         vec![0.0; c.arc_dim],
         &[c.arc_dim, 1],
     )?;
+    if c.tag_head {
+        add(
+            &mut p,
+            "tagger.weight".into(),
+            glorot(&mut rng, 2 * h, c.tag_rows),
+            &[2 * h, c.tag_rows],
+        )?;
+        add(
+            &mut p,
+            "tagger.bias".into(),
+            vec![0.0; c.tag_rows],
+            &[c.tag_rows],
+        )?;
+    }
     let (l, d) = (c.labels, c.label_dim);
     add(&mut p, "label.bilinear".into(), vec![0.0; d * l], &[d, l])?;
     add(
@@ -246,8 +264,8 @@ impl Network<'_> {
             .index_select(&column(&inputs.tags, 1)?, 0)?;
         let suffixes = self
             .get("embed.suffix")?
-            .index_select(&column(&inputs.suffixes, SUFFIXES)?, 0)?
-            .reshape((n, SUFFIXES, self.config.suffix_dim))?
+            .index_select(&column(&inputs.suffixes, AFFIXES)?, 0)?
+            .reshape((n, AFFIXES, self.config.suffix_dim))?
             .sum(1)?;
         let morph = self
             .get("embed.morph")?
@@ -303,12 +321,18 @@ impl Network<'_> {
         };
         let dtype = self.get("arc.bilinear")?.dtype();
         let mut x = self.embed(inputs, dropout)?.to_dtype(dtype)?;
+        let mut tag_scores = None;
         for layer in 0..self.config.layers {
             let forward = self.lstm(&x, &format!("lstm.{layer}.forward"))?;
             let backward = flip(&self.lstm(&flip(&x)?, &format!("lstm.{layer}.backward"))?)?;
             x = Tensor::cat(&[&forward, &backward], 2)?;
             if let Some(d) = dropout {
                 x = d.apply(&x)?;
+            }
+            if layer == 0 && self.config.tag_head {
+                // Tags from the first layer, the arcs from the last (multi-task).
+                let first = x.transpose(0, 1)?.contiguous()?;
+                tag_scores = Some(self.affine(&first, "tagger.weight", "tagger.bias")?);
             }
         }
         // Back to sentence-major for the scorers: (batch, positions, 2·hidden).
@@ -331,6 +355,7 @@ impl Network<'_> {
             arc_head: mlp("arc_head")?,
             label_dependent: mlp("label_dependent")?,
             label_head: mlp("label_head")?,
+            tag_scores,
         })
     }
 

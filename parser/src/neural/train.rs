@@ -48,6 +48,8 @@ pub struct NeuralOptions {
     pub min_word_count: usize,
     /// Global gradient norm above which a step is scaled down.
     pub clip_norm: f64,
+    /// The learning rate is multiplied by this after every epoch without a better dev UAS.
+    pub plateau_decay: f64,
 }
 
 impl Default for NeuralOptions {
@@ -55,7 +57,7 @@ impl Default for NeuralOptions {
         NeuralOptions {
             shape: Shape::default(),
             epochs: 30,
-            patience: 4,
+            patience: 3,
             seed: 1,
             batch_sentences: 32,
             learning_rate: 2e-3,
@@ -63,6 +65,7 @@ impl Default for NeuralOptions {
             word_dropout_alpha: 0.25,
             min_word_count: 2,
             clip_norm: 5.0,
+            plateau_decay: 0.5,
         }
     }
 }
@@ -132,6 +135,7 @@ pub fn config_for(vocabulary: &Vocabulary, shape: &Shape) -> NeuralConfig {
         arc_dim: shape.arc_dim,
         label_dim: shape.label_dim,
         labels: vocabulary.labels.len(),
+        tag_head: shape.tag_head,
     }
 }
 
@@ -143,6 +147,8 @@ pub struct Gold {
     pub heads: Vec<usize>,
     /// `labels[m - 1]`: label id of word m.
     pub labels: Vec<u32>,
+    /// `tags[m - 1]`: tag id of word m (what a tag head learns).
+    pub tags: Vec<u32>,
 }
 
 /// Turns examples into ids under a scorer's vocabulary.
@@ -160,6 +166,17 @@ pub fn gold(scorer: &NeuralScorer, examples: &[Example]) -> Vec<Gold> {
                 .labels
                 .iter()
                 .map(|l| scorer.vocabulary.labels.binary_search(l).unwrap_or(0) as u32)
+                .collect(),
+            tags: e
+                .tags
+                .iter()
+                .map(|t| {
+                    scorer
+                        .vocabulary
+                        .tags
+                        .binary_search(t)
+                        .map_or(super::UNKNOWN, |i| (i + super::RESERVED) as u32)
+                })
                 .collect(),
         })
         .collect()
@@ -189,6 +206,7 @@ pub fn batch_loss(
     let mut gold_heads = Vec::new();
     let mut gold_head_rows = Vec::new();
     let mut gold_labels = Vec::new();
+    let mut gold_tags = Vec::new();
     let mut mask = Vec::new();
     for (s, g) in batch.iter().enumerate() {
         let len = g.ids.len();
@@ -197,6 +215,7 @@ pub fn batch_loss(
             gold_heads.push(g.heads[m] as u32);
             gold_head_rows.push((s * t + g.heads[m]) as u32);
             gold_labels.push(g.labels[m - 1]);
+            gold_tags.push(g.tags.get(m - 1).copied().unwrap_or(super::UNKNOWN));
             mask.extend((0..t).map(|h| if h < len && h != m { 0.0f32 } else { -1e9 }));
         }
     }
@@ -223,7 +242,18 @@ pub fn batch_loss(
     let label_loss = candle_nn::ops::log_softmax(&labels, D::Minus1)?
         .gather(&gold_labels, 1)?
         .sum_all()?;
-    Ok(((arc_loss + label_loss)?.neg()?, n))
+    let mut total = (arc_loss + label_loss)?;
+    if let Some(tag_scores) = &encoded.tag_scores {
+        let tags = tag_scores
+            .reshape((inputs.batch * t, config.tag_rows))?
+            .index_select(&rows, 0)?;
+        let gold_tags = Tensor::from_vec(gold_tags, (n, 1), &device)?;
+        let tag_loss = candle_nn::ops::log_softmax(&tags, D::Minus1)?
+            .gather(&gold_tags, 1)?
+            .sum_all()?;
+        total = (total + tag_loss)?;
+    }
+    Ok((total.neg()?, n))
 }
 
 /// An embedding table trained with sparse ("lazy") Adam: a batch reads only a few hundred of its
@@ -402,7 +432,7 @@ pub fn train(
         drop_chance[i + super::RESERVED] =
             options.word_dropout_alpha / (options.word_dropout_alpha + c);
     }
-    let adam = ParamsAdamW {
+    let mut adam = ParamsAdamW {
         lr: options.learning_rate,
         beta1: 0.9,
         beta2: 0.9,
@@ -605,6 +635,9 @@ pub fn train(
                 if since_best >= options.patience {
                     break;
                 }
+                // A plateau: smaller steps from here on (common practice).
+                adam.lr *= options.plateau_decay;
+                optimizer.set_learning_rate(adam.lr);
             }
             None => {}
         }

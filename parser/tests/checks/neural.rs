@@ -16,7 +16,7 @@ use arcwright_parser::scorer::{ArcScorer, TaggedSentence};
 use arcwright_parser::train::{self, Example, TrainOptions};
 use candle_core::{DType, Device, Tensor, Var};
 
-fn tiny_config() -> NeuralConfig {
+fn tiny_config(tag_head: bool) -> NeuralConfig {
     NeuralConfig {
         word_rows: 6,
         word_dim: 3,
@@ -31,6 +31,7 @@ fn tiny_config() -> NeuralConfig {
         arc_dim: 4,
         label_dim: 3,
         labels: 3,
+        tag_head,
     }
 }
 
@@ -62,12 +63,13 @@ fn tiny_batch() -> Vec<Gold> {
             tags: tags.to_vec(),
             suffixes: words
                 .iter()
-                .flat_map(|&w| (0..5).map(move |k| (w * 7 + k * 13) % 256))
+                .flat_map(|&w| (0..7).map(move |k| (w * 7 + k * 13) % 256))
                 .collect(),
             morph: words.iter().flat_map(|&w| [w % 3, (w + 1) % 3]).collect(),
         },
         heads: heads.to_vec(),
         labels: labels.to_vec(),
+        tags: tags[1..].to_vec(),
     };
     vec![
         sentence(
@@ -90,7 +92,12 @@ fn loss(config: &NeuralConfig, parameters: &Parameters, batch: &[Gold]) -> Tenso
 
 #[test]
 fn gradients_of_the_whole_network_match_central_differences() {
-    let config = tiny_config();
+    for tag_head in [false, true] {
+        check_gradients(tiny_config(tag_head));
+    }
+}
+
+fn check_gradients(config: NeuralConfig) {
     let base = tiny_parameters(&config);
     let batch = tiny_batch();
     let vars: Vec<(String, Var)> = base
@@ -221,6 +228,7 @@ fn train_tiny(seed: u64, threads: usize) -> Model {
             layers: 1,
             arc_dim: 8,
             label_dim: 8,
+            tag_head: false,
         },
         epochs: 2,
         seed,

@@ -333,18 +333,46 @@ impl Engine {
             metrics::QUEUE_WAIT.observe(queued.elapsed().as_secs_f64());
             let _request = span.enter(); // stage spans on the pool belong to the request's span
             use rayon::prelude::*;
-            let parsed: Vec<Option<(usize, Vec<TokenOut>)>> = work
-                .into_par_iter()
-                .map(|w| {
-                    if Instant::now() > cutoff {
-                        return None; // the caller has given up; skip the work
+            let parsed: Vec<Option<(usize, Vec<TokenOut>)>> =
+                if snapshot.model.scorer.scores_faster_together() && work.len() > 1 {
+                    // Sentences of similar lengths scored together, one group per parsing
+                    // thread (at most GROUP_SENTENCES each).
+                    let mut work = work;
+                    work.sort_by_key(|w| w.forms.len());
+                    let threads = rayon::current_num_threads().max(1);
+                    let size = work.len().div_ceil(threads).clamp(1, GROUP_SENTENCES);
+                    let mut groups: Vec<Vec<Work>> = Vec::new();
+                    for w in work {
+                        match groups.last_mut() {
+                            Some(g) if g.len() < size => g.push(w),
+                            _ => groups.push(vec![w]),
+                        }
                     }
-                    Some((
-                        w.input,
-                        parse_sentence(&snapshot, w, &options, tokenize_seconds, true),
-                    ))
-                })
-                .collect();
+                    groups
+                        .into_par_iter()
+                        .flat_map_iter(|group| {
+                            if Instant::now() > cutoff {
+                                return vec![None; group.len()];
+                            }
+                            parse_group(&snapshot, group, &options, tokenize_seconds)
+                                .into_iter()
+                                .map(Some)
+                                .collect()
+                        })
+                        .collect()
+                } else {
+                    work.into_par_iter()
+                        .map(|w| {
+                            if Instant::now() > cutoff {
+                                return None; // the caller has given up; skip the work
+                            }
+                            Some((
+                                w.input,
+                                parse_sentence(&snapshot, w, &options, tokenize_seconds, true),
+                            ))
+                        })
+                        .collect()
+                };
             let _ = sender.send(parsed);
             drop(permit);
         });
@@ -405,6 +433,8 @@ pub fn parse_for_benchmark(served: &Served, forms: &[String], record_metrics: bo
 /// the end of the sentence: one lock, no per-stage label lookups).
 struct StageTimes {
     seconds: [f64; metrics::STAGES.len()],
+    /// Confidences and labels, which have no metric stage of their own.
+    untracked: f64,
 }
 
 impl StageObserver for StageTimes {
@@ -414,7 +444,10 @@ impl StageObserver for StageTimes {
             pipeline::Stage::Score => Stage::Score,
             pipeline::Stage::Decode => Stage::Decode,
             // Confidences and labels count towards the total only.
-            pipeline::Stage::Confidence | pipeline::Stage::Label => return,
+            pipeline::Stage::Confidence | pipeline::Stage::Label => {
+                self.untracked += seconds;
+                return;
+            }
         };
         tracing::debug!(stage = stage.name(), seconds, "stage done");
         self.seconds[stage as usize] = seconds;
@@ -435,6 +468,7 @@ fn parse_sentence(
     let _span = tracing::debug_span!("sentence", tokens, decoder = decoder.name()).entered();
     let mut times = StageTimes {
         seconds: [0.0; metrics::STAGES.len()],
+        untracked: 0.0,
     };
     times.seconds[Stage::Tokenize as usize] = tokenize_seconds;
     let total = Instant::now();
@@ -443,8 +477,59 @@ fn parse_sentence(
     if record_metrics {
         metrics::record_sentence(&times.seconds, parsed.decoder, tokens);
     }
+    tokens_out(work.forms, parsed)
+}
+
+/// Sentences scored together by a model whose scorer is faster that way
+/// ([`pipeline::parse_many`]); each records its own stages, with an equal share of the joint
+/// scoring time, and a total that is the sum of its stages.
+fn parse_group(
+    served: &Served,
+    group: Vec<Work>,
+    options: &ParseOptions,
+    tokenize_seconds: f64,
+) -> Vec<(usize, Vec<TokenOut>)> {
+    let _span = tracing::debug_span!("sentences", count = group.len()).entered();
+    let mut times: Vec<StageTimes> = group
+        .iter()
+        .map(|_| StageTimes {
+            seconds: [0.0; metrics::STAGES.len()],
+            untracked: 0.0,
+        })
+        .collect();
+    let inputs: Vec<pipeline::Input<'_>> = group
+        .iter()
+        .map(|w| pipeline::Input {
+            forms: &w.forms,
+            tags: w.tags.as_deref(),
+        })
+        .collect();
+    let mut observers: Vec<&mut dyn StageObserver> = times
+        .iter_mut()
+        .map(|t| t as &mut dyn StageObserver)
+        .collect();
+    let parsed = pipeline::parse_many(&served.model, &inputs, options, &mut observers);
+    drop(observers);
+    group
+        .into_iter()
+        .zip(parsed)
+        .zip(times.iter_mut())
+        .map(|((work, parsed), times)| {
+            times.seconds[Stage::Tokenize as usize] = tokenize_seconds;
+            times.seconds[Stage::Total as usize] = times.seconds[Stage::Tag as usize]
+                + times.seconds[Stage::Score as usize]
+                + times.seconds[Stage::Decode as usize]
+                + times.untracked;
+            metrics::record_sentence(&times.seconds, parsed.decoder, work.forms.len());
+            (work.input, tokens_out(work.forms, parsed))
+        })
+        .collect()
+}
+
+/// The reply's tokens of one parsed sentence.
+fn tokens_out(forms: Vec<String>, parsed: pipeline::Parsed) -> Vec<TokenOut> {
     let mut confidences = parsed.confidences.map(Vec::into_iter);
-    work.forms
+    forms
         .into_iter()
         .zip(parsed.tags)
         .zip(parsed.labels)
@@ -459,6 +544,9 @@ fn parse_sentence(
         })
         .collect()
 }
+
+/// The most sentences scored together in one group (a padded batch through a neural encoder).
+const GROUP_SENTENCES: usize = 32;
 
 /// Runs `f` when dropped.
 fn scopeguard(f: impl FnOnce()) -> impl Drop {
