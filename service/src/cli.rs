@@ -283,10 +283,10 @@ pub struct TrainOptions {
     /// Neural kind: stacked BiLSTM layers.
     #[arg(long, default_value_t = 2, value_parser = clap::value_parser!(u32).range(1..=4))]
     pub layers: u32,
-    /// Neural kind: predict tags with a second output of the network (trained together with the
-    /// arcs) instead of the linear tagger; the network then reads no tags.
+    /// Neural kind: read the linear tagger's tags instead of predicting tags with a second
+    /// output of the network trained together with the arcs (the default, and more accurate).
     #[arg(long)]
-    pub tag_head: bool,
+    pub linear_tags: bool,
     /// Neural kind: sentences per mini-batch.
     #[arg(long, default_value_t = 32, value_parser = clap::value_parser!(u32).range(1..=1024))]
     pub batch_sentences: u32,

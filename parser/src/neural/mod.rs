@@ -92,7 +92,7 @@ impl Default for Shape {
             layers: 2,
             arc_dim: 256,
             label_dim: 96,
-            tag_head: false,
+            tag_head: true,
         }
     }
 }

@@ -132,7 +132,7 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
         shape: Shape {
             hidden: options.hidden as usize,
             layers: options.layers as usize,
-            tag_head: options.tag_head,
+            tag_head: !options.linear_tags,
             ..Shape::default()
         },
         epochs,

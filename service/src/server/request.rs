@@ -545,8 +545,10 @@ fn tokens_out(forms: Vec<String>, parsed: pipeline::Parsed) -> Vec<TokenOut> {
         .collect()
 }
 
-/// The most sentences scored together in one group (a padded batch through a neural encoder).
-const GROUP_SENTENCES: usize = 32;
+/// The most sentences scored together in one group (a padded batch through a neural encoder):
+/// 8 scored 1.6× faster per sentence than one at a time, 32 only 1.2× (`neural_speed` bench,
+/// docs/performance.md).
+const GROUP_SENTENCES: usize = 8;
 
 /// Runs `f` when dropped.
 fn scopeguard(f: impl FnOnce()) -> impl Drop {
