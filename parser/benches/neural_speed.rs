@@ -40,14 +40,7 @@ fn main() {
             }
         })
         .collect();
-    let tagged: Vec<TaggedSentence<'_>> = sentences
-        .iter()
-        .map(|e| TaggedSentence {
-            forms: &e.forms,
-            tags: &e.tags,
-            morph: &e.morph,
-        })
-        .collect();
+    let tagged: Vec<TaggedSentence<'_>> = sentences.iter().map(Example::tagged).collect();
 
     let mut c = Criterion::default().configure_from_args();
     let mut group = c.benchmark_group("neural score, 25 words");

@@ -62,6 +62,11 @@ impl SplitMix64 {
         scramble(self.state, 0)
     }
 
+    /// A number uniform in [0, 1), from the top 53 bits.
+    pub fn next_f64(&mut self) -> f64 {
+        (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
+    }
+
     /// A number in `0..n` (n > 0; modulo reduction, slightly biased for huge n).
     pub fn below(&mut self, n: usize) -> usize {
         (self.next_u64() % n as u64) as usize

@@ -19,7 +19,7 @@ use crate::hashing::{bucket, mix};
 use crate::model::Model;
 use crate::neural::{self, NeuralError, train::NeuralOptions};
 use crate::perceptron::{self, Trainee, weight_table, weight_table_from};
-use crate::scorer::{ArcScorer, LinearScorer};
+use crate::scorer::{ArcScorer, LinearScorer, TaggedSentence};
 use crate::tagger::Tagger;
 use crate::text;
 use crate::tokenize::Abbreviations;
@@ -37,6 +37,15 @@ pub struct Example {
 }
 
 impl Example {
+    /// What a scorer reads of this sentence: its forms, tags and morphology.
+    pub fn tagged(&self) -> TaggedSentence<'_> {
+        TaggedSentence {
+            forms: &self.forms,
+            tags: &self.tags,
+            morph: &self.morph,
+        }
+    }
+
     /// From an annotated CoNLL-U sentence; `None` if it has no words or no complete tree.
     pub fn from_sentence(sentence: &Sentence) -> Option<Example> {
         let heads = sentence.heads()?;
@@ -129,7 +138,8 @@ pub struct EpochReport {
     pub dev_tags_predicted: bool,
 }
 
-fn sorted_unique(values: impl Iterator<Item = String>) -> Vec<String> {
+/// The distinct values, sorted (tag and label inventories).
+pub(crate) fn sorted_unique(values: impl Iterator<Item = String>) -> Vec<String> {
     let mut v: Vec<String> = values.collect();
     v.sort();
     v.dedup();

@@ -152,6 +152,28 @@ fn backward<F: WithDType + Float>(
     Ok((d_pre, d_recurrent))
 }
 
+/// [`backward`] on tensors: the gradients shaped as the pre-activations and the recurrent
+/// weights.
+fn backward_tensors<F: WithDType + Float>(
+    res: &Tensor,
+    grad_res: &Tensor,
+    shape: (usize, usize, usize),
+    recurrent: &Tensor,
+) -> Result<(Tensor, Tensor)> {
+    let (steps, batch, width) = shape;
+    let h_dim = width / 6;
+    let (d_pre, d_recurrent) = backward::<F>(
+        &res.flatten_all()?.to_vec1()?,
+        &grad_res.flatten_all()?.to_vec1()?,
+        shape,
+        recurrent,
+    )?;
+    Ok((
+        Tensor::from_vec(d_pre, (steps, batch, 4 * h_dim), &Device::Cpu)?,
+        Tensor::from_vec(d_recurrent, (h_dim, 4 * h_dim), &Device::Cpu)?,
+    ))
+}
+
 impl CustomOp2 for Recurrence {
     fn name(&self) -> &'static str {
         "lstm-recurrence"
@@ -196,35 +218,11 @@ impl CustomOp2 for Recurrence {
         res: &Tensor,
         grad_res: &Tensor,
     ) -> Result<(Option<Tensor>, Option<Tensor>)> {
-        let (steps, batch, width) = res.dims3()?;
-        let h_dim = width / 6;
-        let shape = (steps, batch, width);
+        let shape = res.dims3()?;
         let recurrent = recurrent.detach();
         let (d_pre, d_recurrent) = match res.dtype() {
-            DType::F32 => {
-                let (a, b) = backward::<f32>(
-                    &res.flatten_all()?.to_vec1()?,
-                    &grad_res.flatten_all()?.to_vec1()?,
-                    shape,
-                    &recurrent,
-                )?;
-                (
-                    Tensor::from_vec(a, (steps, batch, 4 * h_dim), &Device::Cpu)?,
-                    Tensor::from_vec(b, (h_dim, 4 * h_dim), &Device::Cpu)?,
-                )
-            }
-            DType::F64 => {
-                let (a, b) = backward::<f64>(
-                    &res.flatten_all()?.to_vec1()?,
-                    &grad_res.flatten_all()?.to_vec1()?,
-                    shape,
-                    &recurrent,
-                )?;
-                (
-                    Tensor::from_vec(a, (steps, batch, 4 * h_dim), &Device::Cpu)?,
-                    Tensor::from_vec(b, (h_dim, 4 * h_dim), &Device::Cpu)?,
-                )
-            }
+            DType::F32 => backward_tensors::<f32>(res, grad_res, shape, &recurrent)?,
+            DType::F64 => backward_tensors::<f64>(res, grad_res, shape, &recurrent)?,
             other => candle_core::bail!("lstm recurrence: no backward for {other:?}"),
         };
         Ok((Some(d_pre), Some(d_recurrent)))

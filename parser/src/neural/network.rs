@@ -87,7 +87,7 @@ impl Dropout {
 fn glorot(rng: &mut SplitMix64, rows: usize, cols: usize) -> Vec<f32> {
     let bound = (6.0 / (rows + cols) as f64).sqrt();
     (0..rows * cols)
-        .map(|_| ((rng.next_u64() >> 11) as f64 / (1u64 << 53) as f64 * 2.0 - 1.0) * bound)
+        .map(|_| (rng.next_f64() * 2.0 - 1.0) * bound)
         .map(|x| x as f32)
         .collect()
 }
@@ -105,9 +105,7 @@ pub fn initial(config: &NeuralConfig, seed: u64, dtype: DType) -> Result<Paramet
     let embedding = |rng: &mut SplitMix64, rows: usize, dim: usize| -> Vec<f32> {
         let bound = (3.0 / dim as f64).sqrt();
         (0..rows * dim)
-            .map(|_| {
-                (((rng.next_u64() >> 11) as f64 / (1u64 << 53) as f64 * 2.0 - 1.0) * bound) as f32
-            })
+            .map(|_| ((rng.next_f64() * 2.0 - 1.0) * bound) as f32)
             .collect()
     };
     let c = config;

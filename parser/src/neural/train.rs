@@ -20,7 +20,7 @@ use crate::decode::{self, Algorithm, RootConstraint};
 use crate::hashing::{SplitMix64, shuffle};
 use crate::scorer::{ScoredSentence, TaggedSentence};
 use crate::text;
-use crate::train::Example;
+use crate::train::{Example, sorted_unique};
 
 use super::network::{self, Dropout, Network, Parameters};
 use super::{
@@ -79,13 +79,6 @@ pub struct NeuralEpoch {
     pub dev_uas: Option<f64>,
     pub dev_las: Option<f64>,
     pub seconds: f64,
-}
-
-fn sorted_unique(values: impl Iterator<Item = String>) -> Vec<String> {
-    let mut v: Vec<String> = values.collect();
-    v.sort();
-    v.dedup();
-    v
 }
 
 /// The vocabularies of a training set, and each kept word's count.
@@ -156,11 +149,7 @@ pub fn gold(scorer: &NeuralScorer, examples: &[Example]) -> Vec<Gold> {
     examples
         .iter()
         .map(|e| Gold {
-            ids: scorer.ids(TaggedSentence {
-                forms: &e.forms,
-                tags: &e.tags,
-                morph: &e.morph,
-            }),
+            ids: scorer.ids(e.tagged()),
             heads: e.heads.clone(),
             labels: e
                 .labels
@@ -357,14 +346,7 @@ pub fn attachment(
 ) -> Result<(f64, f64), NeuralError> {
     let (mut words, mut heads_right, mut both_right) = (0usize, 0usize, 0usize);
     for chunk in dev.chunks(64) {
-        let sentences: Vec<TaggedSentence<'_>> = chunk
-            .iter()
-            .map(|e| TaggedSentence {
-                forms: &e.forms,
-                tags: &e.tags,
-                morph: &e.morph,
-            })
-            .collect();
+        let sentences: Vec<TaggedSentence<'_>> = chunk.iter().map(Example::tagged).collect();
         for (scored, e) in scorer.score_batch(&sentences)?.iter().zip(chunk) {
             let tree = decode::decode(scored.arc_scores(), decoder, RootConstraint::SingleRoot);
             let labels = scored.best_labels(&tree.heads);
@@ -480,9 +462,7 @@ pub fn train(
             for sentence in ids.iter_mut() {
                 for w in sentence.words.iter_mut() {
                     let chance = drop_chance[*w as usize];
-                    if chance > 0.0
-                        && ((rng.next_u64() >> 11) as f64 / (1u64 << 53) as f64) < chance
-                    {
+                    if chance > 0.0 && (rng.next_f64()) < chance {
                         *w = super::UNKNOWN;
                     }
                 }

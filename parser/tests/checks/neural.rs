@@ -36,7 +36,7 @@ fn tiny_config(tag_head: bool) -> NeuralConfig {
 }
 
 fn uniform(rng: &mut SplitMix64) -> f64 {
-    (rng.next_u64() >> 11) as f64 / (1u64 << 53) as f64 * 2.0 - 1.0
+    rng.next_f64() * 2.0 - 1.0
 }
 
 /// Parameters in f64 with every entry away from zero (the biaffine weights start at zero).
@@ -327,14 +327,7 @@ fn scoring_sentences_together_gives_each_its_own_scores() {
     };
     let examples = demo_examples();
     let chosen: Vec<&Example> = examples.iter().skip(130).take(6).collect();
-    let sentences: Vec<TaggedSentence<'_>> = chosen
-        .iter()
-        .map(|e| TaggedSentence {
-            forms: &e.forms,
-            tags: &e.tags,
-            morph: &e.morph,
-        })
-        .collect();
+    let sentences: Vec<TaggedSentence<'_>> = chosen.iter().map(|e| e.tagged()).collect();
     let together = neural.score_batch(&sentences).unwrap();
     for (sentence, batched) in sentences.iter().zip(&together) {
         let alone = neural.score(*sentence).unwrap();
