@@ -180,8 +180,8 @@ define conllu-check "install build" "arcwright conllu check on the Turkish treeb
     "$BIN" conllu check "$TREEBANK/web.conllu" "$TREEBANK/wiki.conllu"
 define turkish "install build" "train and evaluate on the Turkish treebank (floors, crossing arcs, reproducibility)" \
     python3 tests/oracles/check_turkish_training.py "$BIN" "$TREEBANK" "$TURKISH" 8
-define calibration "install build model" "calibrated confidences: ECE recomputed by Guo et al.'s formula, bound 0.03, every word in [0, 1]; UAS/LAS recomputed (conllu package)" \
-    python3 tests/oracles/check_calibration.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/calibration"
+define calibration "install build model" "calibrated confidences: ECE recomputed by Guo et al.'s formula, bound 0.03, every word in [0, 1], the logistic map optimal on dev; UAS/LAS recomputed (conllu package)" \
+    python3 tests/oracles/check_calibration.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/calibration" "$TURKISH/split/dev.conllu"
 define sentence-split "install build model" "sentence boundaries of raw text against the Turkish test split (conllu package), with and without learned abbreviations" \
     python3 tests/oracles/check_sentence_split.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/sentence-split"
 define pipeline-identity "install build model" "service replies equal the library's, bit for bit (Turkish test split, HTTP and gRPC)" \
@@ -202,7 +202,7 @@ define promtool-rules "install" "promtool check rules (deploy/prometheus)" \
     promtool check rules deploy/prometheus/rules/recording.yml deploy/prometheus/rules/alerts.yml
 define promtool-tests "install" "promtool test rules (deploy/prometheus/tests)" \
     bash -c "cd deploy/prometheus/tests && promtool test rules rules_test.yml"
-define prometheus "install build" "Prometheus scrapes arcwright serve: promtool check metrics, scaling exponents, per-bucket p99" \
+define prometheus "install build" "Prometheus scrapes arcwright serve: promtool check metrics, the decoder probe under short traffic, its verdict flipped and alert fired by a slowed decoder, scaling exponents, cost models, per-bucket p99" \
     python3 tests/e2e/check_prometheus.py "$BIN" "$CACHE/work/prometheus"
 define load "install build" "load tests: smoke run of every scenario, report, accounting against server counters" \
     python3 tests/e2e/check_load.py "$BIN" "$LOAD_BIN" "$CACHE/work/load"

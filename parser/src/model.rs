@@ -6,7 +6,7 @@ use std::path::Path;
 
 use serde::{Deserialize, Serialize};
 
-use crate::calibration::Temperatures;
+use crate::calibration::{LogitMaps, Temperatures};
 use crate::decode::Algorithm;
 use crate::features::FeatureConfig;
 use crate::neural::{NeuralConfig, NeuralScorer, Vocabulary};
@@ -33,6 +33,9 @@ pub struct Model {
     /// (fitted on dev data so that they are calibrated; 1 when not fitted). Decoding does not
     /// use them.
     pub confidence_temperatures: Temperatures,
+    /// Then each chosen head's marginal goes through the decoder's logistic map (fitted on dev
+    /// after the temperature; the identity when not fitted).
+    pub confidence_maps: LogitMaps,
     /// Free-form facts about the training run (data fingerprint, epochs, scores).
     pub training: serde_json::Value,
 }
@@ -101,6 +104,9 @@ struct Description {
     /// Absent in models written before confidences were calibrated: 1 for both decoders.
     #[serde(default)]
     confidence_temperatures: Temperatures,
+    /// Absent in models written before the logistic maps: the identity for both decoders.
+    #[serde(default)]
+    confidence_logit_maps: LogitMaps,
     /// The neural kind's network and vocabularies; its weights are in `neural.safetensors`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     neural: Option<NeuralDescription>,
@@ -269,6 +275,7 @@ impl Model {
             default_decoder: self.default_decoder.name().to_string(),
             abbreviations: self.abbreviations.to_list(),
             confidence_temperatures: self.confidence_temperatures,
+            confidence_logit_maps: self.confidence_maps,
             neural: None,
             training: self.training.clone(),
         };
@@ -325,6 +332,13 @@ impl Model {
             return Err(format_error(format!(
                 "confidence_temperatures {:?}: each must be a positive number",
                 d.confidence_temperatures
+            )));
+        }
+        let maps = d.confidence_logit_maps;
+        if !(maps.projective.valid() && maps.non_projective.valid()) {
+            return Err(format_error(format!(
+                "confidence_logit_maps {maps:?}: each slope must be a positive number and each \
+                 offset a number"
             )));
         }
         let default_decoder = Algorithm::from_name(&d.default_decoder)
@@ -406,6 +420,7 @@ impl Model {
             default_decoder,
             abbreviations: Abbreviations::from_list(d.abbreviations),
             confidence_temperatures: d.confidence_temperatures,
+            confidence_maps: d.confidence_logit_maps,
             training: d.training,
         })
     }

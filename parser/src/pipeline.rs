@@ -226,8 +226,10 @@ fn finish(
     lap(observer, Stage::Decode);
     let confidences = options.confidence.then(|| {
         // Confidences from the calibrated distribution: scores divided by the model's fitted
-        // temperature (the decoded tree is the same at any temperature).
+        // temperature (the decoded tree is the same at any temperature), then the chosen head's
+        // marginal through the model's logistic map (which keeps it in [0, 1]).
         let temperature = model.confidence_temperatures.get(decoder);
+        let confidence_map = model.confidence_maps.get(decoder);
         let calibrated;
         let for_marginals = if temperature == 1.0 {
             scores
@@ -251,7 +253,7 @@ fn finish(
                 let total: f64 = (0..decoded.heads.len()).map(|h| p.probability(h, m)).sum();
                 // Probabilities, whatever rounding did: never outside [0, 1].
                 (p.reliable(m) && (total - 1.0).abs() <= 1e-6)
-                    .then(|| p.probability(head, m).clamp(0.0, 1.0))
+                    .then(|| confidence_map.apply(p.probability(head, m)))
             })
             .collect();
         lap(observer, Stage::Confidence);

@@ -282,11 +282,12 @@ pub fn train_neural(
         default_decoder: prepared.decoder,
         abbreviations: Abbreviations::learn(train.iter().map(|e| e.forms.as_slice())),
         confidence_temperatures: calibration::Temperatures::default(),
+        confidence_maps: calibration::LogitMaps::default(),
         training: serde_json::Value::Null,
     };
     if !dev.is_empty() {
-        progress("fitting the confidence temperatures on dev", None);
-        model.confidence_temperatures = fit_confidence_temperatures(&model, dev, threads);
+        progress("calibrating the confidences on dev", None);
+        calibrate_confidences(&mut model, dev, threads);
     }
     Ok(model)
 }
@@ -322,6 +323,7 @@ pub fn train(
         default_decoder: decoder,
         abbreviations: Abbreviations::learn(train.iter().map(|e| e.forms.as_slice())),
         confidence_temperatures: calibration::Temperatures::default(),
+        confidence_maps: calibration::LogitMaps::default(),
         training: serde_json::Value::Null,
     };
     let label_index = |label: &str| {
@@ -477,19 +479,16 @@ pub fn train(
             .label_weights = labels;
     }
     if !dev.is_empty() {
-        progress("fitting the confidence temperatures on dev", None);
-        model.confidence_temperatures = fit_confidence_temperatures(&model, dev, threads);
+        progress("calibrating the confidences on dev", None);
+        calibrate_confidences(&mut model, dev, threads);
     }
     model
 }
 
-/// The temperatures that calibrate the model's confidences on `dev` for each decoder, parsed as
-/// in use (tags and morphology predicted by the model's own taggers).
-pub fn fit_confidence_temperatures(
-    model: &Model,
-    dev: &[Example],
-    threads: usize,
-) -> calibration::Temperatures {
+/// Fits the confidence calibration on `dev` for each decoder, parsed as in use (tags and
+/// morphology predicted by the model's own taggers): first the temperature, then the logistic
+/// map of the chosen heads' marginals at that temperature.
+pub fn calibrate_confidences(model: &mut Model, dev: &[Example], threads: usize) {
     let held: Vec<calibration::Held> = dev
         .iter()
         .map(|example| calibration::Held {
@@ -497,9 +496,11 @@ pub fn fit_confidence_temperatures(
             heads: example.heads.clone(),
         })
         .collect();
-    calibration::Temperatures {
-        projective: calibration::fit_temperature(&held, Algorithm::Projective, threads),
-        non_projective: calibration::fit_temperature(&held, Algorithm::NonProjective, threads),
+    for decoder in [Algorithm::Projective, Algorithm::NonProjective] {
+        let t = calibration::fit_temperature(&held, decoder, threads);
+        let pairs = calibration::chosen_arc_pairs(&held, decoder, t, threads);
+        *model.confidence_temperatures.get_mut(decoder) = t;
+        *model.confidence_maps.get_mut(decoder) = calibration::fit_logit_map(&pairs);
     }
 }
 

@@ -35,6 +35,11 @@ pub enum Command {
         after_help = "Example:\n  arcwright eval --model my-model --gold split/test.conllu --exclude-label punct > scores.json"
     )]
     Eval(EvalOptions),
+    /// Refit a model's confidence calibration on held-out CoNLL-U; write the model again.
+    #[command(
+        after_help = "Example:\n  arcwright calibrate --model my-model --held-out split/dev.conllu --out my-model-calibrated"
+    )]
+    Calibrate(CalibrateOptions),
     /// Parse stdin (CoNLL-U or text) to CoNLL-U on stdout.
     #[command(
         after_help = "Example:\n  echo \"The pilot signed the manifest.\" | arcwright parse --model my-model --input text"
@@ -56,6 +61,10 @@ pub enum Command {
     /// For container health checks, where the runtime image has no other client.
     #[command(after_help = "Example:\n  arcwright health --grpc 127.0.0.1:50051 --timeout 2")]
     Health(HealthOptions),
+    /// Time both decoders on synthetic sentences of 32-512 words and judge their growth, as
+    /// every replica of `serve` does in the background (JSON on stdout, one object per run).
+    #[command(after_help = "Example:\n  arcwright probe --runs 5")]
+    Probe(ProbeOptions),
     /// Parse text with a running service over gRPC (the client generated from proto/); prints
     /// CoNLL-U, or the reply as JSON with --json.
     Query(QueryOptions),
@@ -86,6 +95,16 @@ pub struct QueryOptions {
     /// Give up after this many seconds.
     #[arg(long, default_value_t = 10.0)]
     pub timeout: f64,
+}
+
+#[derive(Debug, Args)]
+pub struct ProbeOptions {
+    /// Runs, one after the other.
+    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u32).range(1..=100))]
+    pub runs: u32,
+    /// Test switch: time the textbook decoders with an extra linear factor instead.
+    #[arg(long, hide = true)]
+    pub slowed: bool,
 }
 
 #[derive(Debug, Args)]
@@ -337,6 +356,22 @@ pub struct EvalOptions {
     /// Write each scored arc's confidence and whether its head is right (TSV) to this file.
     #[arg(long, value_name = "FILE.tsv")]
     pub arc_confidences: Option<PathBuf>,
+}
+
+#[derive(Debug, Args)]
+pub struct CalibrateOptions {
+    /// Model directory (as written by `arcwright train`).
+    #[arg(long)]
+    pub model: PathBuf,
+    /// Held-out CoNLL-U with gold heads (not the training data), parsed with predicted tags.
+    #[arg(long, value_name = "FILE")]
+    pub held_out: PathBuf,
+    /// Directory to write the recalibrated model to (may be the model directory itself).
+    #[arg(long)]
+    pub out: PathBuf,
+    /// Threads for the fit (default: all cores).
+    #[arg(long)]
+    pub threads: Option<usize>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]

@@ -70,10 +70,18 @@ fn main() -> ExitCode {
         cli::Command::Conllu(options) => commands::conllu::run(&options),
         cli::Command::Train(options) => commands::train::run(&options),
         cli::Command::Eval(options) => commands::eval::run(&options),
+        cli::Command::Calibrate(options) => commands::train::calibrate(&options),
         cli::Command::Parse(options) => commands::parse::run(&options),
         cli::Command::DemoData(options) => commands::demo::run(&options),
         cli::Command::Store(options) => commands::store::run(&options),
         cli::Command::Health(options) => commands::health::run(&options),
+        cli::Command::Probe(options) => {
+            for _ in 0..options.runs {
+                let run = server::probe::run_once(options.slowed);
+                println!("{}", serde_json::to_string(&run).unwrap_or_default());
+            }
+            Ok(())
+        }
         cli::Command::Query(options) => commands::query::run(&options),
         cli::Command::Serve(mut options) => match matches.subcommand_matches("serve") {
             Some(serve_matches) => match options.apply_config_file(serve_matches) {

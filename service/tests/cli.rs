@@ -295,6 +295,62 @@ fn a_model_from_demo_data_through_the_commands() {
     assert!(report["excluding_labels"]["tokens"].as_u64() < report["tokens"].as_u64());
     assert!(stderr.contains("projective sentences"), "{stderr}");
 
+    // Recalibration on other held-out sentences: new confidence maps, the same trees; nothing
+    // to fit on is an error naming the file.
+    let (code, held_out, stderr) = run(&["demo-data", "--sentences", "120", "--seed", "9"], b"");
+    assert_eq!(code, 0, "{stderr}");
+    std::fs::write(dir.join("held-out.conllu"), &held_out).expect("write");
+    let calibrate = |held_out: &str| {
+        run(
+            &[
+                "calibrate",
+                "--model",
+                &path("m"),
+                "--held-out",
+                &path(held_out),
+                "--out",
+                &path("m-calibrated"),
+            ],
+            b"",
+        )
+    };
+    let (code, _, stderr) = calibrate("empty.conllu");
+    assert_eq!(code, 2, "{stderr}");
+    assert!(
+        stderr.contains("empty.conllu") && stderr.contains("no annotated sentences"),
+        "{stderr}"
+    );
+    let (code, _, stderr) = calibrate("held-out.conllu");
+    assert_eq!(code, 0, "{stderr}");
+    assert!(stderr.contains("logistic map"), "{stderr}");
+    let description = |model: &str| -> serde_json::Value {
+        let text = std::fs::read_to_string(dir.join(model).join("model.json")).expect("model.json");
+        serde_json::from_str(&text).expect("JSON")
+    };
+    assert_ne!(
+        description("m")["confidence_logit_maps"],
+        description("m-calibrated")["confidence_logit_maps"]
+    );
+    let (code, recalibrated, stderr) = run(
+        &[
+            "eval",
+            "--model",
+            &path("m-calibrated"),
+            "--gold",
+            &path("demo.conllu"),
+            "--exclude-label",
+            "punct",
+        ],
+        b"",
+    );
+    assert_eq!(code, 0, "{stderr}");
+    let recalibrated: serde_json::Value = serde_json::from_str(&recalibrated).expect("JSON");
+    assert_eq!(
+        recalibrated["las"], report["las"],
+        "the trees do not change"
+    );
+    assert!(recalibrated["calibration"]["logit_map"]["slope"].as_f64() > Some(0.0));
+
     // Prune shows what it would delete and deletes only with --yes.
     let store = path("store");
     let mut versions = Vec::new();

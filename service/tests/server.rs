@@ -44,6 +44,10 @@ fn config(store: &std::path::Path, cache: &std::path::Path, deadline: Duration) 
         },
         threads: 2,
         grace: Duration::from_secs(5),
+        probe: arcwright::server::probe::ProbeSettings {
+            interval: Duration::ZERO,
+            slowed: false,
+        },
     }
 }
 

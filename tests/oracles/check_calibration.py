@@ -15,7 +15,14 @@ the test split, with predicted tags, for each decoder:
 * UAS and LAS recomputed from `arcwright parse` output and the gold file, both read with the PyPI
   `conllu` package, equal eval's (all tokens, predicted tags).
 
-Usage: check_calibration.py BINARY MODEL_DIR TEST_CONLLU WORK_DIR
+With DEV_CONLLU (the held-out file the calibration was fitted on): the logistic map after the
+temperature is the maximum-likelihood one. Fitting q = σ(a·logit p + b) by log-loss is a
+one-feature logistic regression (Platt 1999), convex in (a, b); at its optimum the gradient
+vanishes, and written in the calibrated confidences q alone (logit p = (logit q − b)/a) that is
+Σ (q − y) = 0 and Σ (q − y)·logit q = 0, with y = 1 for a right head. Both means are recomputed
+here from eval's per-arc output on dev and must be below 1e-4.
+
+Usage: check_calibration.py BINARY MODEL_DIR TEST_CONLLU WORK_DIR [DEV_CONLLU]
 """
 import json
 import math
@@ -48,6 +55,7 @@ def guo_ece(pairs, bins=10):
 
 def main():
     binary, model, gold_path, work = sys.argv[1:5]
+    dev_path = sys.argv[5] if len(sys.argv) > 5 else None
     shutil.rmtree(work, ignore_errors=True)
     os.makedirs(work)
     checks = cs.Checks(report_passes=True)
@@ -96,6 +104,21 @@ def main():
         expect(abs(uas - report["uas"]) < 1e-9 and abs(las - report["las"]) < 1e-9,
                f"{decoder}: UAS {uas:.2f} / LAS {las:.2f} recomputed from parse output = eval's "
                f"{report['uas']:.2f} / {report['las']:.2f}")
+    if dev_path:
+        for decoder in ("non-projective", "projective"):
+            arcs_file = f"{work}/dev-arcs-{decoder}.tsv"
+            subprocess.run([binary, "eval", "--model", model, "--gold", dev_path, "--decoder", decoder,
+                            "--arc-confidences", arcs_file], capture_output=True, text=True, check=True)
+            with open(arcs_file) as f:
+                rows = [line.split("\t") for line in f.read().splitlines()[1:]]
+            pairs = [(float(p), right.strip() == "1") for p, right in rows]
+            edge = 1e-12
+            logit = [math.log(min(max(q, edge), 1 - edge) / (1 - min(max(q, edge), 1 - edge))) for q, _ in pairs]
+            bias = sum(q - y for q, y in pairs) / len(pairs)
+            slope = sum((q - y) * x for (q, y), x in zip(pairs, logit)) / len(pairs)
+            expect(abs(bias) < 1e-4 and abs(slope) < 1e-4,
+                   f"{decoder}: the logistic map is the log-loss optimum on dev (Platt 1999; mean of (q − y) "
+                   f"{bias:.1e}, of (q − y)·logit q {slope:.1e}, both below 1e-4)")
     sys.exit(1 if checks.failures else 0)
 
 

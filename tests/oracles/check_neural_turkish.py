@@ -77,7 +77,8 @@ def main():
 
     calibration = subprocess.run([sys.executable, os.path.join(os.path.dirname(os.path.abspath(__file__)),
                                                                "check_calibration.py"),
-                                  binary, model, f"{split}/test.conllu", f"{work}/calibration"])
+                                  binary, model, f"{split}/test.conllu", f"{work}/calibration",
+                                  f"{split}/dev.conllu"])
     checks.expect(calibration.returncode == 0, "calibration checks on the neural model (check_calibration.py)")
     print(f"{checks.passed} checks passed, {len(checks.failures)} failed")
     sys.exit(1 if checks.failures else 0)

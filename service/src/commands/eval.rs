@@ -89,6 +89,7 @@ pub fn run(options: &EvalOptions) -> Result<(), Failure> {
         "mean_confidence": calibrated.mean_confidence,
         "accuracy": calibrated.accuracy,
         "temperature": model.confidence_temperatures.get(used_decoder),
+        "logit_map": model.confidence_maps.get(used_decoder),
         "bins": calibrated.bins,
     });
     if let Some(path) = &options.arc_confidences {
@@ -106,12 +107,14 @@ pub fn run(options: &EvalOptions) -> Result<(), Failure> {
     eprint!("{}", evaluator.table());
     eprintln!(
         "confidence: expected calibration error {:.4} over {} arcs (mean confidence {:.4}, \
-         accuracy {:.4}; temperature {:.3}){}",
+         accuracy {:.4}; temperature {:.3}, logistic map {:.3} · logit p + {:.3}){}",
         calibrated.expected_calibration_error,
         calibrated.arcs,
         calibrated.mean_confidence,
         calibrated.accuracy,
         model.confidence_temperatures.get(used_decoder),
+        model.confidence_maps.get(used_decoder).slope,
+        model.confidence_maps.get(used_decoder).offset,
         if without_confidence > 0 {
             format!("; {without_confidence} arcs without a confidence")
         } else {

@@ -3,7 +3,9 @@
 use std::io::IsTerminal;
 use std::time::Instant;
 
+use arcwright_parser::decode::Algorithm;
 use arcwright_parser::features::FeatureConfig;
+use arcwright_parser::model::Model;
 use arcwright_parser::neural::Shape;
 use arcwright_parser::neural::train::NeuralOptions;
 use arcwright_parser::train::{self, Example, TrainOptions};
@@ -171,6 +173,47 @@ pub fn run(options: &cli::TrainOptions) -> Result<(), Failure> {
         options.out.display(),
         started.elapsed().as_secs_f64(),
         peak_memory_mib().map_or("unknown".to_string(), |m| format!("{m:.0} MiB"))
+    );
+    Ok(())
+}
+
+/// `arcwright calibrate`: the model's confidence temperatures and logistic maps fitted again on
+/// held-out data (the decoded trees do not change); everything else is written as it was read.
+pub fn calibrate(options: &cli::CalibrateOptions) -> Result<(), Failure> {
+    let started = Instant::now();
+    let mut model = Model::load(&options.model).map_err(Failure::bad_input)?;
+    let (held_out, fingerprint) = examples(&options.held_out)?;
+    let threads = options
+        .threads
+        .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()))
+        .max(1);
+    train::calibrate_confidences(&mut model, &held_out, threads);
+    if let serde_json::Value::Object(facts) = &mut model.training {
+        facts.insert(
+            "calibration_file".to_string(),
+            options.held_out.display().to_string().into(),
+        );
+        facts.insert(
+            "calibration_fingerprint_fnv64".to_string(),
+            format!("{fingerprint:016x}").into(),
+        );
+    }
+    model.save(&options.out).map_err(Failure::runtime)?;
+    for decoder in [Algorithm::NonProjective, Algorithm::Projective] {
+        let map = model.confidence_maps.get(decoder);
+        eprintln!(
+            "{}: temperature {:.3}, logistic map {:.3} · logit p + {:.3}",
+            decoder.name(),
+            model.confidence_temperatures.get(decoder),
+            map.slope,
+            map.offset
+        );
+    }
+    eprintln!(
+        "model written to {} in {:.1} s ({} held-out sentences)",
+        options.out.display(),
+        started.elapsed().as_secs_f64(),
+        held_out.len()
     );
     Ok(())
 }

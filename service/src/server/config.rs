@@ -115,6 +115,15 @@ pub struct ServeArgs {
     /// Log JSON lines instead of human-readable text.
     #[arg(long, env = "ARCWRIGHT_LOG_JSON")]
     pub log_json: bool,
+    /// Seconds between runs of the decoder probe (both decoders timed on synthetic sentences of
+    /// 32-512 words, on an idle-priority thread; the first run at start). 0 turns it off.
+    #[arg(long, env = "ARCWRIGHT_PROBE_SECONDS", default_value_t = 300.0)]
+    pub probe_seconds: f64,
+    /// Test switch for the alerting path: the probe times the textbook decoders, run ⌈n/128⌉
+    /// times per matrix, as a decoder one order too slow would be. Never for production.
+    #[arg(long, env = "ARCWRIGHT_PROBE_SLOWED", hide = true)]
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub probe_slowed: bool,
     /// Optional settings file (TOML): the flag names above as keys, without `--`
     /// (`max-tokens = 256`, `store = "s3://bucket/prefix"`). A flag or an environment variable
     /// wins over the file.
@@ -144,6 +153,7 @@ pub struct Config {
     pub limits: Limits,
     pub threads: usize,
     pub grace: Duration,
+    pub probe: super::probe::ProbeSettings,
 }
 
 impl std::fmt::Debug for Config {
@@ -163,6 +173,7 @@ impl std::fmt::Debug for Config {
             .field("limits", &self.limits)
             .field("threads", &self.threads)
             .field("grace", &self.grace)
+            .field("probe", &self.probe)
             .finish()
     }
 }
@@ -321,6 +332,14 @@ impl ServeArgs {
                 None => std::thread::available_parallelism().map_or(1, |n| n.get()),
             },
             grace: seconds("grace-seconds", self.grace_seconds)?,
+            probe: super::probe::ProbeSettings {
+                interval: if self.probe_seconds == 0.0 {
+                    Duration::ZERO
+                } else {
+                    seconds("probe-seconds", self.probe_seconds)?
+                },
+                slowed: self.probe_slowed,
+            },
         })
     }
 }

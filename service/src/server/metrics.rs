@@ -266,6 +266,184 @@ pub static SCALING_R_SQUARED: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| 
     )
 });
 
+/// The decoder probe's last fitted exponent per decoder.
+pub static PROBE_EXPONENT: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_probe_exponent",
+                "Decoder probe: slope of ln(CPU time) against ln(words) over the lengths where the decoder's leading term dominates",
+            ),
+            &["decoder"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// 1 when the last probe's exponent was inside the decoder's expected band, else 0.
+pub static PROBE_CONSISTENT: LazyLock<IntGaugeVec> = LazyLock::new(|| {
+    register(
+        IntGaugeVec::new(
+            Opts::new(
+                "arcwright_probe_consistent",
+                "Decoder probe verdict: 1 when the fitted exponent is inside the expected band (3 projective, 2 non-projective), else 0",
+            ),
+            &["decoder"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// Consecutive runs, up to the last, whose verdict was inconsistent (0 after a consistent one):
+/// what alerts wait on, so that one disturbed run does not page.
+pub static PROBE_STREAK: LazyLock<IntGaugeVec> = LazyLock::new(|| {
+    register(
+        IntGaugeVec::new(
+            Opts::new(
+                "arcwright_probe_inconsistent_streak",
+                "Decoder probe: consecutive runs up to the last whose verdict was inconsistent",
+            ),
+            &["decoder"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// The expected band's bounds, for dashboards.
+pub static PROBE_BAND: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_probe_band",
+                "Decoder probe: the band its exponent is expected in",
+            ),
+            &["decoder", "bound"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// CPU seconds of one decode per probed length.
+pub static PROBE_SECONDS: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_probe_seconds",
+                "Decoder probe: CPU seconds of the fastest of its decodes of a synthetic sentence of this many words",
+            ),
+            &["decoder", "tokens"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// Probe runs per decoder and verdict.
+pub static PROBE_RUNS: LazyLock<IntCounterVec> = LazyLock::new(|| {
+    register(
+        IntCounterVec::new(
+            Opts::new(
+                "arcwright_probe_runs_total",
+                "Decoder probe runs by verdict",
+            ),
+            &["decoder", "verdict"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// CPU time the probe has used.
+pub static PROBE_CPU: LazyLock<prometheus::Counter> = LazyLock::new(|| {
+    register(
+        prometheus::Counter::new(
+            "arcwright_probe_cpu_seconds_total",
+            "CPU seconds used by the decoder probe",
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// Publishes one probe run.
+pub fn record_probe(run: &super::probe::Run) {
+    for d in &run.decoders {
+        PROBE_EXPONENT
+            .with_label_values(&[d.decoder])
+            .set(d.exponent);
+        PROBE_CONSISTENT
+            .with_label_values(&[d.decoder])
+            .set(i64::from(d.consistent));
+        let streak = PROBE_STREAK.with_label_values(&[d.decoder]);
+        if d.consistent {
+            streak.set(0);
+        } else {
+            streak.inc();
+        }
+        PROBE_BAND
+            .with_label_values(&[d.decoder, "lower"])
+            .set(d.expected.band[0]);
+        PROBE_BAND
+            .with_label_values(&[d.decoder, "upper"])
+            .set(d.expected.band[1]);
+        for p in &d.points {
+            PROBE_SECONDS
+                .with_label_values(&[d.decoder, &p.tokens.to_string()])
+                .set(p.cpu_seconds);
+        }
+        for verdict in ["consistent", "inconsistent"] {
+            let runs = PROBE_RUNS.with_label_values(&[d.decoder, verdict]);
+            if (verdict == "consistent") == d.consistent {
+                runs.inc();
+            }
+        }
+    }
+    PROBE_CPU.inc_by(run.cpu_seconds.max(0.0));
+}
+
+/// The traffic cost models' coefficients (a in seconds, b per squared token, c per cubed token).
+pub static COST_MODEL_COEFFICIENT: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_cost_model_coefficient",
+                "Cost model t(n) = a + b*n^2 + c*n^3 fitted to the length buckets' medians: its coefficients",
+            ),
+            &["stage", "decoder", "term"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// The cost models' predicted seconds at a few reference lengths.
+pub static COST_MODEL_SECONDS: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_cost_model_seconds",
+                "Cost model's predicted seconds for a sentence of this many tokens",
+            ),
+            &["stage", "decoder", "tokens"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// How far the farthest observed bucket median is from its cost model, as |ln(model/observed)|
+/// (symmetric: twice and half are both ln 2).
+pub static COST_MODEL_ERROR: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_cost_model_log_error",
+                "Largest |ln(model / observed)| over the length buckets' medians",
+            ),
+            &["stage", "decoder"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// Lengths at which the cost models' predictions are exported.
+pub const COST_MODEL_LENGTHS: [usize; 4] = [16, 32, 64, 128];
+
 pub fn record_swap(name: &str, ok: bool) {
     SWAPS
         .with_label_values(&[name, if ok { "ok" } else { "failed" }])
@@ -296,14 +474,31 @@ pub fn init() {
     LazyLock::force(&SCALING_EXPONENT);
     LazyLock::force(&SCALING_SAMPLES);
     LazyLock::force(&SCALING_R_SQUARED);
+    LazyLock::force(&PROBE_CPU);
 }
 
-/// The text exposition of every metric (scaling fits are computed at scrape time).
+/// The text exposition of every metric (scaling fits and cost models are computed at scrape
+/// time).
 pub fn render() -> String {
-    let fits = super::scaling::TRACKER
+    let (fits, models) = super::scaling::TRACKER
         .lock()
-        .map(|t| t.fits())
+        .map(|t| (t.fits(), t.cost_models()))
         .unwrap_or_default();
+    for (stage, decoder, model) in models {
+        for (term, value) in [("a", model.a), ("b", model.b), ("c", model.c)] {
+            COST_MODEL_COEFFICIENT
+                .with_label_values(&[stage, decoder, term])
+                .set(value);
+        }
+        for tokens in COST_MODEL_LENGTHS {
+            COST_MODEL_SECONDS
+                .with_label_values(&[stage, decoder, &tokens.to_string()])
+                .set(model.seconds(tokens as f64));
+        }
+        COST_MODEL_ERROR
+            .with_label_values(&[stage, decoder])
+            .set(model.max_log_error());
+    }
     for (stage, decoder, fit) in fits {
         SCALING_EXPONENT
             .with_label_values(&[&stage, &decoder])

@@ -13,6 +13,7 @@ pub mod grpc;
 pub mod http;
 pub mod metrics;
 mod openapi;
+pub mod probe;
 pub mod registry;
 pub mod request;
 pub mod scaling;
@@ -47,6 +48,8 @@ pub enum StartupError {
     NothingLoaded { store: String },
     #[error("--default-model: {0}")]
     DefaultModel(ApiError),
+    #[error("cannot start the decoder probe's thread: {0}")]
+    Probe(std::io::Error),
     #[error("cannot start the parsing threads: {0}")]
     Pool(#[from] rayon::ThreadPoolBuildError),
     #[error("cannot listen for {what} on {address}: {source}")]
@@ -267,6 +270,7 @@ pub async fn run(config: config::Config) -> Result<(), StartupError> {
         "arcwright is serving: HTTP on http://{http_addr}, gRPC on {grpc_addr}\n  try: curl -s http://{http_addr}/v1/parse -d '{{\"text\": \"The crane operator moved a blue container.\"}}'\n  gRPC: arcwright query --grpc {grpc_addr} \"The pilot signed the manifest.\"\n  console: http://{http_addr}/ui"
     );
     let follower = tokio::spawn(registry.clone().follow());
+    probe::start(config.probe).map_err(StartupError::Probe)?;
 
     let (shutdown_tx, shutdown_rx) = tokio::sync::watch::channel(false);
     let http_state = state.clone();

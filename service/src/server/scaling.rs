@@ -239,6 +239,15 @@ pub struct CostModel {
 }
 
 impl CostModel {
+    /// The largest |ln(model / observed)| over the buckets (0 when there are none).
+    pub fn max_log_error(&self) -> f64 {
+        self.buckets
+            .iter()
+            .filter(|b| b.1 > 0.0 && b.2 > 0.0)
+            .map(|b| (b.2 / b.1).ln().abs())
+            .fold(0.0, f64::max)
+    }
+
     pub fn seconds(&self, n: f64) -> f64 {
         self.a + self.b * n * n + self.c * n * n * n
     }
