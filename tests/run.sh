@@ -204,6 +204,8 @@ define promtool-tests "install" "promtool test rules (deploy/prometheus/tests)" 
     bash -c "cd deploy/prometheus/tests && promtool test rules rules_test.yml"
 define prometheus "install build" "Prometheus scrapes arcwright serve: promtool check metrics, the decoder probe under short traffic, its verdict flipped and alert fired by a slowed decoder, scaling exponents, cost models, per-bucket p99" \
     python3 tests/e2e/check_prometheus.py "$BIN" "$CACHE/work/prometheus"
+define capacity "install build model" "capacity planning: sentences/s per core predicted from the cost models of other traffic, against a measured run (Turkish test split, within 20%)" \
+    python3 tests/e2e/check_capacity.py "$BIN" "$LOAD_BIN" "$MODEL" "$TURKISH/split" "$CACHE/work/capacity"
 define load "install build" "load tests: smoke run of every scenario, report, accounting against server counters" \
     python3 tests/e2e/check_load.py "$BIN" "$LOAD_BIN" "$CACHE/work/load"
 define deploy "install build" "deployment files: Kubernetes schemas (kubernetes-validate --strict), cross-references, image" \

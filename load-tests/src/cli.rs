@@ -93,6 +93,22 @@ pub enum Command {
         #[arg(long, default_value_t = 5.0)]
         seconds: f64,
     },
+    /// Sentences per second per core for a length distribution, predicted by a running
+    /// service's cost models (`/v1/scaling`), per decoder.
+    #[command(
+        after_help = "Example:\n  arcwright-load plan --http http://127.0.0.1:8080 --conllu corpus.conllu"
+    )]
+    Plan {
+        /// The service's HTTP base URL.
+        #[arg(long, default_value = "http://127.0.0.1:8080")]
+        http: String,
+        /// The lengths of this CoNLL-U file's sentences.
+        #[arg(long, conflicts_with = "lengths", required_unless_present = "lengths")]
+        conllu: Option<String>,
+        /// A file of sentence lengths (whole numbers separated by white space or commas).
+        #[arg(long)]
+        lengths: Option<PathBuf>,
+    },
     /// Regenerate REPORT.md and the plots from a results.json.
     #[command(
         after_help = "Example:\n  arcwright-load report --input load-tests/results.json --out load-tests"

@@ -12,6 +12,7 @@ mod cli;
 mod client;
 mod local;
 mod openloop;
+mod plan;
 mod report;
 mod server_view;
 mod suite;
@@ -97,6 +98,24 @@ async fn main() -> anyhow::Result<()> {
             println!("wrote {}", out.join("REPORT.md").display());
         }
         Command::Suite(args) => suite::run(args).await?,
+        Command::Plan {
+            http,
+            conllu,
+            lengths,
+        } => {
+            let lengths = match (conllu, lengths) {
+                (Some(path), _) => workload::conllu_file(&path)?.iter().map(Vec::len).collect(),
+                (None, Some(path)) => plan::read_lengths(&path)?,
+                (None, None) => anyhow::bail!("give --conllu FILE or --lengths FILE"),
+            };
+            let scaling: serde_json::Value = reqwest::get(format!("{http}/v1/scaling"))
+                .await?
+                .error_for_status()?
+                .json()
+                .await?;
+            let prediction = plan::predict(&scaling, &lengths)?;
+            println!("{}", serde_json::to_string_pretty(&prediction)?);
+        }
     }
     Ok(())
 }

@@ -308,6 +308,13 @@ function fillModelPicker() {
 // ---------------------------------------------------------------------------------------------
 // Performance: latency by length (log–log) and traffic
 
+/** The length bucket (power-of-two upper bound, at least 8) of a sentence of n tokens. */
+function bucketOf(n) {
+  let b = 8;
+  while (b < n) b *= 2;
+  return b;
+}
+
 function logScale(min, max, from, to) {
   const a = Math.log(min), b = Math.log(max);
   return (v) => from + ((Math.log(v) - a) / (b - a)) * (to - from);
@@ -323,15 +330,34 @@ async function refreshScaling() {
 function drawLatency(report) {
   const stage = $("stage-pick").value;
   const decoders = ["projective", "non-projective"];
-  const series = decoders.map((decoder) => ({
-    decoder,
-    points: (report.buckets || [])
-      .filter((b) => b.stage === stage && b.decoder === decoder && b.length_bucket !== "+Inf" && b.p50_seconds > 0)
-      .map((b) => ({ x: Number(b.length_bucket), y: b.p50_seconds, count: b.count }))
-      .sort((p, q) => p.x - q.x),
-    fit: (report.fits || []).find((f) => f.stage === stage && f.decoder === decoder),
-  }));
-  const all = series.flatMap((s) => s.points);
+  // Observed medians at each bucket's median length (as the cost model sees them) when a cost
+  // model exists, else at the bucket's upper bound; the probe's points (decode stage only: the
+  // probe times the decoders alone) at its synthetic lengths.
+  const probeRun = report.probe && report.probe.last;
+  const series = decoders.map((decoder) => {
+    const entry = (report.cost_models || []).find((m) => m.stage === stage && m.decoder === decoder);
+    const model = entry ? entry.model : null;
+    const counts = Object.fromEntries((report.buckets || [])
+      .filter((b) => b.stage === stage && b.decoder === decoder)
+      .map((b) => [b.length_bucket, b.count]));
+    const points = model
+      ? model.buckets.map(([x, y]) => ({ x, y, count: counts[String(bucketOf(x))] || 0 }))
+      : (report.buckets || [])
+        .filter((b) => b.stage === stage && b.decoder === decoder && b.length_bucket !== "+Inf" && b.p50_seconds > 0)
+        .map((b) => ({ x: Number(b.length_bucket), y: b.p50_seconds, count: b.count }));
+    const probed = stage === "decode" && probeRun
+      ? ((probeRun.decoders || []).find((d) => d.decoder === decoder) || { points: [] })
+      : null;
+    return {
+      decoder,
+      points: points.filter((p) => p.x > 0 && p.y > 0).sort((p, q) => p.x - q.x),
+      model,
+      probe: probed ? probed.points.filter((p) => p.cpu_seconds > 0).map((p) => ({ x: p.tokens, y: p.cpu_seconds })) : [],
+      probeResult: probed,
+      fit: (report.fits || []).find((f) => f.stage === stage && f.decoder === decoder),
+    };
+  });
+  const all = series.flatMap((s) => s.points.concat(s.probe));
   const W = 560, H = 320, L = 58, R = 16, T = 14, B = 40;
   const root = svg("svg", { viewBox: `0 0 ${W} ${H}`, role: "img", "aria-label": `median ${stage} latency by sentence length` });
   if (all.length === 0) {
@@ -342,7 +368,8 @@ function drawLatency(report) {
   }
   // Reference slopes 2 and 3 start at the first point of the first series with data and run
   // over the measured lengths, at least three octaves, so the two are visibly different.
-  const anchor = series.find((s) => s.points.length).points[0];
+  const anchor = (series.find((s) => s.points.length) || series.find((s) => s.probe.length))
+    .points.concat(series.flatMap((s) => s.probe))[0];
   const lastX = Math.max(...all.map((p) => p.x));
   const guideEnd = Math.min(512, Math.max(lastX, anchor.x * 8));
   // Axes fitted to the data: from half the shortest bucket to a little past the guides' end.
@@ -363,7 +390,7 @@ function drawLatency(report) {
   }
   root.append(svg("line", { class: "axis", x1: L, x2: W - R, y1: H - B, y2: H - B }));
   root.append(svg("line", { class: "axis", x1: L, x2: L, y1: T, y2: H - B }));
-  root.append(svg("text", { x: (L + W - R) / 2, y: H - 6, "text-anchor": "middle" }, "sentence length (tokens, bucket upper bound)"));
+  root.append(svg("text", { x: (L + W - R) / 2, y: H - 6, "text-anchor": "middle" }, "sentence length (tokens)"));
   for (const slope of [2, 3]) {
     const y2 = anchor.y * Math.pow(guideEnd / anchor.x, slope);
     root.append(svg("line", { class: "guide", x1: sx(anchor.x), y1: sy(anchor.y), x2: sx(guideEnd), y2: sy(y2) }));
@@ -373,21 +400,41 @@ function drawLatency(report) {
   for (const s of series) {
     if (!s.points.length) continue;
     const cls = "series-" + s.decoder;
-    const path = s.points.map((p, i) => `${i ? "L" : "M"}${sx(p.x).toFixed(1)},${sy(p.y).toFixed(1)}`).join(" ");
-    root.append(svg("path", { class: cls, d: path, fill: "none", "stroke-width": 2 }));
     for (const p of s.points) {
       const dot = svg("circle", { class: cls, cx: sx(p.x), cy: sy(p.y), r: 3.5 });
-      dot.append(svg("title", {}, `${s.decoder}, ≤${p.x} tokens: median ${formatSeconds(p.y)} over ${p.count} sentences`));
+      dot.append(svg("title", {}, `${s.decoder}, ${Math.round(p.x)} tokens (bucket median): median ${formatSeconds(p.y)} over ${p.count} sentences`));
       root.append(dot);
     }
+    if (s.model) {
+      // The cost model t(n) = a + l·n + b·n² + c·n³, drawn across the plot.
+      const m = s.model;
+      const t = (n) => m.a + m.l * n + m.b * n * n + m.c * n * n * n;
+      const steps = 60;
+      const path = [];
+      for (let i = 0; i <= steps; i++) {
+        const x = xMin * Math.pow(xMax / xMin, i / steps);
+        const y = t(x);
+        if (y >= yMin && y <= yMax) path.push(`${path.length ? "L" : "M"}${sx(x).toFixed(1)},${sy(y).toFixed(1)}`);
+      }
+      const curve = svg("path", { class: "cost-model " + cls, d: path.join(" ") });
+      curve.append(svg("title", {}, `${s.decoder} cost model: ${formatSeconds(m.a)} + ${formatSeconds(m.l)}·n + ` +
+        `${m.b.toExponential(2)} s·n² + ${m.c.toExponential(2)} s·n³`));
+      root.append(curve);
+    }
+    for (const p of s.probe) {
+      const mark = svg("rect", { class: "probe " + cls, x: sx(p.x) - 4, y: sy(p.y) - 4, width: 8, height: 8 });
+      mark.append(svg("title", {}, `${s.decoder} probe, ${p.x} words: ${formatSeconds(p.y)} CPU per decode`));
+      root.append(mark);
+    }
     const fitted = s.fit && s.fit.samples >= MIN_FIT_SENTENCES;
-    if (fitted && s.points.length >= 2) {
-      // The fitted line, through the geometric centre of the plotted points.
-      const gx = Math.exp(s.points.reduce((a, p) => a + Math.log(p.x), 0) / s.points.length);
-      const gy = Math.exp(s.points.reduce((a, p) => a + Math.log(p.y), 0) / s.points.length);
-      const first = s.points[0].x, last = s.points[s.points.length - 1].x;
-      const at = (x) => gy * Math.pow(x / gx, s.fit.exponent);
-      root.append(svg("line", { class: "fit " + cls, x1: sx(first), y1: sy(at(first)), x2: sx(last), y2: sy(at(last)) }));
+    if (s.probeResult) {
+      const r = s.probeResult;
+      captions.push(`${s.decoder} probe: slope ${r.exponent.toFixed(2)} from ${r.expected.fitted_from} words ` +
+        `(expected ${r.expected.band[0]}–${r.expected.band[1]}), ${r.speedup_over_textbook.toFixed(1)}× the textbook ` +
+        `version: ${r.consistent ? "consistent" : "NOT consistent"}`);
+    }
+    if (s.model && s.model.cubic_dominates_from) {
+      captions.push(`${s.decoder}: the cubic term is the larger part from ${s.model.cubic_dominates_from} tokens`);
     }
     captions.push(fitted
       ? `${s.decoder}: fitted slope ${s.fit.exponent.toFixed(2)} (R² ${s.fit.r_squared.toFixed(2)}, ${s.fit.samples} recent sentences of ≥ ${report.min_tokens} tokens)`
@@ -401,7 +448,9 @@ function drawLatency(report) {
   });
   root.append(legend);
   $("latency-chart").replaceChildren(root);
-  $("latency-caption").textContent = `Median ${stage} time per sentence. ` + captions.join("; ") + ".";
+  $("latency-caption").textContent = `Median ${stage} time per sentence (dots), its cost model (curve)` +
+    (stage === "decode" ? ", the decoder probe (squares)" : "; choose the decode stage to see the decoder probe") +
+    ". " + captions.join("; ") + ".";
 }
 
 function parseCounters(text) {
@@ -744,7 +793,7 @@ function renderParse() {
     el("span", { class: "mark root" }), "root ",
     el("span", { class: "sw crossing" }), "arc in a crossing ",
     results.length > 1 ? [el("span", { class: "sw differs" }), "head differs between decoders "] : null,
-    "· Confidences are in the table and on hover; they are not yet calibrated, so the drawing does not vary with them.");
+    "· Confidences (calibrated probabilities) are in the table and on hover; the drawing does not vary with them.");
   diagrams.replaceChildren(...blocks, legend);
   const tables = results.flatMap((r) =>
     r.body.sentences.map((sentence, k) =>

@@ -5,7 +5,8 @@ probe (every 2 s here) must still find projective decoding cubic and non-project
 quadratic, every run consistent, and no probe alert. Then sentences of 16 to 256 tokens are
 parsed with each decoder, and the Prometheus HTTP API must report the traffic's decode exponents
 (projective in [1.8, 3.4], non-projective below 2.5 and below the projective one), a per-bucket
-p99 for every length bucket driven, and cost-model series. A second replica runs with the probe's
+p99 for every length bucket driven, and cost-model series; every query of the dashboard
+(deploy/dashboards/arcwright.json) must be accepted, and its log-log panel's must return points. A second replica runs with the probe's
 test switch (the textbook decoders with an extra linear factor): its verdict must flip and
 `ArcwrightDecoderOrderRegression` (deploy/prometheus/rules/alerts.yml) must fire for it, and
 only for it. Everything listens on 127.0.0.1; the load is bounded in count and time.
@@ -189,6 +190,25 @@ scrape_configs:
                 {(f"127.0.0.1:{slow_http}", "projective"), (f"127.0.0.1:{slow_http}", "non-projective")}:
             failures.append(f"ArcwrightDecoderOrderRegression should fire for both decoders of the slowed replica only: {firing}")
 
+        # Every dashboard query is valid PromQL for this Prometheus; the log-log panel's cost-model
+        # and probe queries return points.
+        with open(os.path.join(ROOT, "deploy", "dashboards", "arcwright.json"), encoding="utf-8") as f:
+            dashboard = json.load(f)
+        rejected, empty_scaling = [], []
+        for panel in dashboard["panels"]:
+            for t in panel.get("targets", []):
+                try:
+                    result = query(t["expr"])
+                except Exception as e:  # noqa: BLE001  (a 400 names the PromQL error)
+                    rejected.append(f"{panel['title']}: {t['expr']}: {e}")
+                    continue
+                if t["refId"] in ("model", "probe") and not result:
+                    empty_scaling.append(t["expr"])
+        print(f"dashboard: {sum(len(p.get('targets', [])) for p in dashboard['panels'])} queries, "
+              f"{len(rejected)} rejected, log-log panel queries without data: {empty_scaling}")
+        if rejected or empty_scaling:
+            failures.append(f"dashboard queries: rejected {rejected}, without data {empty_scaling}")
+
         # The server's own request histogram counts every request this check sent (the first
         # one included), and every one of them waited for a parsing thread once.
         counted = query(f'sum(arcwright_request_duration_seconds_count{{{target}, api="http", method="parse"}})')
@@ -208,7 +228,7 @@ scrape_configs:
         slowed.wait(timeout=30)
     for f in failures:
         print("FAIL", f, file=sys.stderr)
-    print(f"{10 - len(failures)} passed, {len(failures)} failed")
+    print(f"{11 - len(failures)} passed, {len(failures)} failed")
     print(f"projective decode exponent: traffic of 16-256 tokens {projective:.2f}, the probe (128-512 words) "
           f"{probe.get('projective', float('nan')):.2f}")
     return 1 if failures else 0

@@ -246,6 +246,16 @@ try {
   const fitted = [...caption.matchAll(/fitted slope [\d.]+ \(R² [\d.-]+, (\d+) recent sentences/g)].map((m) => Number(m[1]));
   check(fitted.every((n) => n >= 50) && (fitted.length > 0 || caption.includes("a slope is shown from 50 sentences")),
     `no slope from fewer than 50 sentences: "${caption.trim()}"`);
+  // The decode stage: observed medians, the cost-model curve and the decoder probe's squares on
+  // one log–log plot (the probe ran at start).
+  await page.selectOption("#stage-pick", "decode");
+  await page.waitForFunction(() => document.querySelectorAll("#latency-chart svg rect.probe").length >= 10, null, { timeout: 15000 });
+  const decodeCaption = await page.textContent("#latency-caption");
+  const curves = await page.$$eval("#latency-chart svg path.cost-model", (p) => p.length);
+  check(curves >= 1 && /projective probe: slope [\d.]+ .* consistent/.test(decodeCaption),
+    `decode stage: ${curves} cost-model curves, the probe's 10 points and verdicts: "${decodeCaption.trim().slice(0, 160)}…"`);
+  await page.screenshot({ path: `${OUT}/console-1280-decode-scaling.png`, fullPage: true });
+  await page.selectOption("#stage-pick", "total");
   await page.waitForSelector("#traffic-chart svg path.traffic-line", { timeout: 15000 });
   check(true, "traffic chart draws requests per second");
 

@@ -444,7 +444,7 @@ pub(super) async fn prometheus_metrics() -> impl IntoResponse {
 }
 
 #[utoipa::path(get, path = "/v1/scaling",
-    summary = "Latency against sentence length: exponent fits, cost models t(n) = a + b·n² + c·n³ and per-bucket quantiles per decoder and stage, and the decoder probe's last run; with `tokens`, the predicted time of that length",
+    summary = "Latency against sentence length: exponent fits, cost models t(n) = a + l·n + b·n² + c·n³ and per-bucket quantiles per decoder and stage, and the decoder probe's last run; with `tokens`, the predicted time of that length",
     params(("tokens" = Option<usize>, Query, minimum = 1, maximum = 4096,
         description = "Predict each stage's time for a sentence of this many tokens")),
     responses((status = 200, description = "Fits, cost models and buckets", body = Object),

@@ -404,7 +404,7 @@ pub static COST_MODEL_COEFFICIENT: LazyLock<prometheus::GaugeVec> = LazyLock::ne
         prometheus::GaugeVec::new(
             Opts::new(
                 "arcwright_cost_model_coefficient",
-                "Cost model t(n) = a + b*n^2 + c*n^3 fitted to the length buckets' medians: its coefficients",
+                "Cost model t(n) = a + l*n + b*n^2 + c*n^3 fitted to the length buckets' medians: its coefficients",
             ),
             &["stage", "decoder", "term"],
         )
@@ -442,7 +442,7 @@ pub static COST_MODEL_ERROR: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
 });
 
 /// Lengths at which the cost models' predictions are exported.
-pub const COST_MODEL_LENGTHS: [usize; 4] = [16, 32, 64, 128];
+pub const COST_MODEL_LENGTHS: [usize; 7] = [8, 16, 32, 64, 128, 256, 512];
 
 pub fn record_swap(name: &str, ok: bool) {
     SWAPS
@@ -485,7 +485,12 @@ pub fn render() -> String {
         .map(|t| (t.fits(), t.cost_models()))
         .unwrap_or_default();
     for (stage, decoder, model) in models {
-        for (term, value) in [("a", model.a), ("b", model.b), ("c", model.c)] {
+        for (term, value) in [
+            ("a", model.a),
+            ("l", model.l),
+            ("b", model.b),
+            ("c", model.c),
+        ] {
             COST_MODEL_COEFFICIENT
                 .with_label_values(&[stage, decoder, term])
                 .set(value);
