@@ -209,44 +209,102 @@ pub struct Held {
     pub heads: Vec<usize>,
 }
 
-/// For each word of `held`, the marginal p at temperature `t` of the head the decoder chose, and
-/// whether that head is the gold one: exactly the pairs the expected calibration error bins.
-/// Computed on `threads` threads, returned in sentence order whatever the thread count.
-pub fn chosen_arc_pairs(
-    held: &[Held],
+/// Held-out sentences with the trees a decoder chose for them. The tree does not depend on the
+/// temperature, so it is decoded once, however many temperatures are then tried.
+#[derive(Debug)]
+pub struct Chosen<'a> {
+    held: &'a [Held],
     decoder: Algorithm,
-    t: f64,
-    threads: usize,
-) -> Vec<(f64, bool)> {
-    let sentence_pairs = |(h, chosen): &(&Held, Heads)| -> Vec<(f64, bool)> {
-        let scaled = h.scores.scaled(1.0 / t);
-        let p = marginals::marginals(&scaled, decoder, RootConstraint::SingleRoot);
-        chosen
-            .arcs()
-            .map(|(m, head)| (p.probability(head, m).clamp(0.0, 1.0), head == h.heads[m]))
-            .collect()
-    };
-    // The tree does not depend on the temperature: decode once.
-    let decoded: Vec<(&Held, Heads)> = held
-        .iter()
-        .map(|h| {
-            let tree = decode::decode(&h.scores, decoder, RootConstraint::SingleRoot);
-            (h, tree.heads)
-        })
-        .collect();
-    let threads = threads.clamp(1, held.len().max(1));
-    let mut per_sentence = vec![Vec::new(); held.len()];
-    let chunk = held.len().div_ceil(threads).max(1);
-    std::thread::scope(|scope| {
-        for (sentences, out) in decoded.chunks(chunk).zip(per_sentence.chunks_mut(chunk)) {
-            scope.spawn(move || {
-                for (h, slot) in sentences.iter().zip(out.iter_mut()) {
-                    *slot = sentence_pairs(h);
-                }
-            });
+    heads: Vec<Heads>,
+}
+
+impl<'a> Chosen<'a> {
+    pub fn decode(held: &'a [Held], decoder: Algorithm) -> Chosen<'a> {
+        let heads = held
+            .iter()
+            .map(|h| decode::decode(&h.scores, decoder, RootConstraint::SingleRoot).heads)
+            .collect();
+        Chosen {
+            held,
+            decoder,
+            heads,
         }
-    });
-    per_sentence.into_iter().flatten().collect()
+    }
+
+    /// For each word, the marginal p at temperature `t` of the head the decoder chose, and
+    /// whether that head is the gold one: exactly the pairs the expected calibration error bins.
+    /// Computed on `threads` threads, returned in sentence order whatever the thread count.
+    pub fn pairs(&self, t: f64, threads: usize) -> Vec<(f64, bool)> {
+        let decoder = self.decoder;
+        let sentence_pairs = |(h, chosen): (&Held, &Heads)| -> Vec<(f64, bool)> {
+            let scaled = h.scores.scaled(1.0 / t);
+            let p = marginals::marginals(&scaled, decoder, RootConstraint::SingleRoot);
+            chosen
+                .arcs()
+                .map(|(m, head)| (p.probability(head, m).clamp(0.0, 1.0), head == h.heads[m]))
+                .collect()
+        };
+        let held = self.held;
+        let threads = threads.clamp(1, held.len().max(1));
+        let mut per_sentence = vec![Vec::new(); held.len()];
+        let chunk = held.len().div_ceil(threads).max(1);
+        std::thread::scope(|scope| {
+            for ((sentences, trees), out) in held
+                .chunks(chunk)
+                .zip(self.heads.chunks(chunk))
+                .zip(per_sentence.chunks_mut(chunk))
+            {
+                scope.spawn(move || {
+                    for ((h, tree), slot) in sentences.iter().zip(trees).zip(out.iter_mut()) {
+                        *slot = sentence_pairs((h, tree));
+                    }
+                });
+            }
+        });
+        per_sentence.into_iter().flatten().collect()
+    }
+
+    /// Mean binary log-loss of the chosen arcs at temperature `t` ([`Chosen::pairs`],
+    /// [`log_loss`]). This is a proper scoring rule of exactly what the expected calibration
+    /// error measures (the chosen heads' confidences against their correctness); the likelihood
+    /// of the gold heads, which the first fits minimised, is also pulled by how little mass gold
+    /// heads the decoder missed receive, and left a neural model under-confident in its middle
+    /// bins (measured in docs/decisions/confidence-temperature.md). Does not depend on the
+    /// thread count.
+    pub fn log_loss(&self, t: f64, threads: usize) -> f64 {
+        log_loss(&self.pairs(t, threads))
+    }
+
+    /// The temperature in [1/50, 50] minimising [`Chosen::log_loss`]: golden-section search on
+    /// ln T (the loss is smooth and, in practice, unimodal in ln T), to a relative precision of
+    /// about 1% (finer changes no confidence by more than a fraction of a percent).
+    pub fn fit_temperature(&self, threads: usize) -> f64 {
+        if self.held.is_empty() {
+            return 1.0;
+        }
+        let f = |log_t: f64| self.log_loss(log_t.exp(), threads);
+        let (mut a, mut b) = ((1.0f64 / 50.0).ln(), 50f64.ln());
+        let ratio = (5f64.sqrt() - 1.0) / 2.0;
+        let mut c = b - ratio * (b - a);
+        let mut d = a + ratio * (b - a);
+        let (mut fc, mut fd) = (f(c), f(d));
+        while b - a > 1e-2 {
+            if fc < fd {
+                b = d;
+                d = c;
+                fd = fc;
+                c = b - ratio * (b - a);
+                fc = f(c);
+            } else {
+                a = c;
+                c = d;
+                fc = fd;
+                d = a + ratio * (b - a);
+                fd = f(d);
+            }
+        }
+        ((a + b) / 2.0).exp()
+    }
 }
 
 /// Mean binary log-loss of (confidence, right) pairs: −ln p for a right arc, −ln(1 − p) for a
@@ -260,16 +318,6 @@ pub fn log_loss(pairs: &[(f64, bool)]) -> f64 {
         })
         .sum();
     total / pairs.len().max(1) as f64
-}
-
-/// Mean binary log-loss of the chosen arcs at temperature `t` ([`chosen_arc_pairs`],
-/// [`log_loss`]). This is a proper scoring rule of exactly what the expected calibration error
-/// measures (the chosen heads' confidences against their correctness); the likelihood of the
-/// gold heads, which the first fits minimised, is also pulled by how little mass gold heads the
-/// decoder missed receive, and left a neural model under-confident in its middle bins (measured
-/// in docs/decisions/confidence-temperature.md). Does not depend on the thread count.
-pub fn chosen_arc_log_loss(held: &[Held], decoder: Algorithm, t: f64, threads: usize) -> f64 {
-    log_loss(&chosen_arc_pairs(held, decoder, t, threads))
 }
 
 /// The logistic map minimising the [`log_loss`] of `pairs` after it: a one-feature logistic
@@ -333,37 +381,6 @@ pub fn fit_logit_map(pairs: &[(f64, bool)]) -> LogitMap {
         }
     }
     map
-}
-
-/// The temperature in [1/50, 50] minimising [`chosen_arc_log_loss`]: golden-section search on
-/// ln T (the loss is smooth and, in practice, unimodal in ln T), to a relative precision of
-/// about 1% (finer changes no confidence by more than a fraction of a percent).
-pub fn fit_temperature(held: &[Held], decoder: Algorithm, threads: usize) -> f64 {
-    if held.is_empty() {
-        return 1.0;
-    }
-    let f = |log_t: f64| chosen_arc_log_loss(held, decoder, log_t.exp(), threads);
-    let (mut a, mut b) = ((1.0f64 / 50.0).ln(), 50f64.ln());
-    let ratio = (5f64.sqrt() - 1.0) / 2.0;
-    let mut c = b - ratio * (b - a);
-    let mut d = a + ratio * (b - a);
-    let (mut fc, mut fd) = (f(c), f(d));
-    while b - a > 1e-2 {
-        if fc < fd {
-            b = d;
-            d = c;
-            fd = fc;
-            c = b - ratio * (b - a);
-            fc = f(c);
-        } else {
-            a = c;
-            c = d;
-            fc = fd;
-            d = a + ratio * (b - a);
-            fd = f(d);
-        }
-    }
-    ((a + b) / 2.0).exp()
 }
 
 #[cfg(test)]
@@ -486,10 +503,11 @@ mod tests {
             }
             held.push(Held { scores, heads });
         }
-        let t = fit_temperature(&held, Algorithm::NonProjective, 2);
+        let chosen = Chosen::decode(&held, Algorithm::NonProjective);
+        let t = chosen.fit_temperature(2);
         assert_eq!(
-            chosen_arc_log_loss(&held, Algorithm::NonProjective, t, 1),
-            chosen_arc_log_loss(&held, Algorithm::NonProjective, t, 3),
+            chosen.log_loss(t, 1),
+            chosen.log_loss(t, 3),
             "the same at any thread count"
         );
         assert!((2.5..3.6).contains(&t), "fitted {t}");

@@ -497,8 +497,9 @@ pub fn calibrate_confidences(model: &mut Model, dev: &[Example], threads: usize)
         })
         .collect();
     for decoder in [Algorithm::Projective, Algorithm::NonProjective] {
-        let t = calibration::fit_temperature(&held, decoder, threads);
-        let pairs = calibration::chosen_arc_pairs(&held, decoder, t, threads);
+        let chosen = calibration::Chosen::decode(&held, decoder);
+        let t = chosen.fit_temperature(threads);
+        let pairs = chosen.pairs(t, threads);
         *model.confidence_temperatures.get_mut(decoder) = t;
         *model.confidence_maps.get_mut(decoder) = calibration::fit_logit_map(&pairs);
     }
