@@ -12,11 +12,18 @@ pub struct Prediction {
     pub decoder: String,
     pub sentences: usize,
     pub mean_tokens: f64,
-    /// Mean over the sentences of t(n) = a + l·n + b·n² + c·n³ (the `total` stage's model).
+    /// The cost model planned from: `cpu` (the parsing thread's CPU seconds per sentence: what
+    /// a core is busy for, whatever else the machine did meanwhile) where the service has it,
+    /// else `total` (wall-clock seconds of the parsing stages).
+    pub stage: String,
+    /// Mean over the sentences of t(n) = a + l·n + b·n² + c·n³ of that model.
     pub mean_seconds: f64,
     pub sentences_per_second_per_core: f64,
     /// The model's largest relative error on the buckets it was fitted to.
     pub model_relative_error: f64,
+    /// Mean wall-clock seconds per sentence from the `total` stage's model, when there is one
+    /// (above `mean_seconds` by the time the parsing thread waited for a core).
+    pub mean_wall_seconds: Option<f64>,
 }
 
 /// Lengths from a text file: whole numbers separated by white space or commas.
@@ -45,7 +52,8 @@ pub fn read_lengths(path: &Path) -> anyhow::Result<Vec<usize>> {
     Ok(lengths)
 }
 
-/// Predictions per decoder from `/v1/scaling`'s cost models of the `total` stage.
+/// Predictions per decoder from `/v1/scaling`'s cost models of the `cpu` stage (or of the
+/// `total` stage where a service has no `cpu` model).
 pub fn predict(scaling: &serde_json::Value, lengths: &[usize]) -> anyhow::Result<Vec<Prediction>> {
     if lengths.is_empty() {
         anyhow::bail!("no sentence lengths to plan for");
@@ -58,15 +66,14 @@ pub fn predict(scaling: &serde_json::Value, lengths: &[usize]) -> anyhow::Result
             .as_f64()
             .ok_or_else(|| anyhow::anyhow!("cost model without a number {key:?}: {v}"))
     };
-    let mut predictions = Vec::new();
-    for entry in models.iter().filter(|m| m["stage"] == "total") {
-        let model = &entry["model"];
-        let (a, b, c) = (
+    // The mean of t(n) over the lengths.
+    let mean_cost = |model: &serde_json::Value| -> anyhow::Result<f64> {
+        let (a, l, b, c) = (
             number(model, "a")?,
+            number(model, "l")?,
             number(model, "b")?,
             number(model, "c")?,
         );
-        let l = number(model, "l")?;
         let total: f64 = lengths
             .iter()
             .map(|&n| {
@@ -74,19 +81,41 @@ pub fn predict(scaling: &serde_json::Value, lengths: &[usize]) -> anyhow::Result
                 a + l * n + b * n * n + c * n * n * n
             })
             .sum();
-        let mean_seconds = total / lengths.len() as f64;
+        Ok(total / lengths.len() as f64)
+    };
+    let find = |stage: &str, decoder: &serde_json::Value| {
+        models
+            .iter()
+            .find(|m| m["stage"] == stage && &m["decoder"] == decoder)
+    };
+    let mut decoders: Vec<&serde_json::Value> = models
+        .iter()
+        .filter(|m| m["stage"] == "total" || m["stage"] == "cpu")
+        .map(|m| &m["decoder"])
+        .collect();
+    decoders.sort_by_key(|d| d.as_str().unwrap_or(""));
+    decoders.dedup();
+    let mut predictions = Vec::new();
+    for decoder in decoders {
+        let wall = find("total", decoder);
+        let Some(entry) = find("cpu", decoder).or(wall) else {
+            continue;
+        };
+        let mean_seconds = mean_cost(&entry["model"])?;
         predictions.push(Prediction {
-            decoder: entry["decoder"].as_str().unwrap_or("?").to_string(),
+            decoder: decoder.as_str().unwrap_or("?").to_string(),
             sentences: lengths.len(),
             mean_tokens: lengths.iter().sum::<usize>() as f64 / lengths.len() as f64,
+            stage: entry["stage"].as_str().unwrap_or("?").to_string(),
             mean_seconds,
             sentences_per_second_per_core: 1.0 / mean_seconds.max(1e-12),
-            model_relative_error: number(model, "max_relative_error")?,
+            model_relative_error: number(&entry["model"], "max_relative_error")?,
+            mean_wall_seconds: wall.map(|w| mean_cost(&w["model"])).transpose()?,
         });
     }
     if predictions.is_empty() {
         anyhow::bail!(
-            "the service has no cost model of the total stage yet: it needs traffic in at least two length buckets"
+            "the service has no cost model of the cpu or total stage yet: it needs traffic in at least two length buckets"
         );
     }
     Ok(predictions)
@@ -107,6 +136,7 @@ mod tests {
              "model": {"a": 1.0, "l": 0.0, "b": 0.0, "c": 0.0, "max_relative_error": 0.1}}]});
         let p = predict(&scaling, &[10, 30]).expect("prediction");
         assert_eq!(p.len(), 1);
+        assert_eq!(p[0].stage, "total");
         assert!((p[0].mean_seconds - 1.5e-3).abs() < 1e-12);
         assert!((p[0].sentences_per_second_per_core - 1000.0 / 1.5).abs() < 1e-6);
         assert_eq!(p[0].mean_tokens, 20.0);
@@ -115,6 +145,21 @@ mod tests {
         linear["cost_models"][0]["model"]["l"] = serde_json::json!(1e-5);
         let p = predict(&linear, &[10, 30]).expect("prediction");
         assert!((p[0].mean_seconds - 1.7e-3).abs() < 1e-12);
+        // With a CPU model the plan uses it, and gives the wall time beside it: t(n) = 1 ms
+        // over any lengths → 1,000 sentences per second per core.
+        let mut cpu = linear.clone();
+        cpu["cost_models"]
+            .as_array_mut()
+            .expect("array")
+            .push(serde_json::json!({"stage": "cpu", "decoder": "projective",
+                "model": {"a": 1e-3, "l": 0.0, "b": 0.0, "c": 0.0, "max_relative_error": 0.0}}));
+        let p = predict(&cpu, &[10, 30]).expect("prediction");
+        assert_eq!((p.len(), p[0].stage.as_str()), (1, "cpu"));
+        assert!((p[0].sentences_per_second_per_core - 1000.0).abs() < 1e-6);
+        assert!(
+            p[0].mean_wall_seconds
+                .is_some_and(|w| (w - 1.7e-3).abs() < 1e-12)
+        );
     }
 
     #[test]

@@ -82,12 +82,18 @@ static STAGE_HANDLES: LazyLock<Vec<OnceLock<Histogram>>> = LazyLock::new(|| {
         .collect()
 });
 /// Handles of the sentence and token counters by decoder.
-static SENTENCE_HANDLES: [OnceLock<(IntCounter, IntCounter)>; 2] =
+static SENTENCE_HANDLES: [OnceLock<(IntCounter, IntCounter, prometheus::Counter)>; 2] =
     [OnceLock::new(), OnceLock::new()];
 
 /// Records one parsed sentence: its stage durations in seconds (indexed by [`Stage`]) in the
-/// stage histograms and the scaling tracker, and the sentence and token counters.
-pub fn record_sentence(seconds: &[f64; STAGES.len()], decoder: Algorithm, tokens: usize) {
+/// stage histograms and the scaling tracker, its parsing thread's CPU seconds in the CPU counter
+/// and the tracker (as the pseudo-stage [`CPU_STAGE`]), and the sentence and token counters.
+pub fn record_sentence(
+    seconds: &[f64; STAGES.len()],
+    cpu_seconds: f64,
+    decoder: Algorithm,
+    tokens: usize,
+) {
     let (d, label) = (decoder_index(decoder), decoder.name());
     let b = LENGTH_BUCKETS
         .iter()
@@ -99,14 +105,16 @@ pub fn record_sentence(seconds: &[f64; STAGES.len()], decoder: Algorithm, tokens
             .get_or_init(|| STAGE_DURATION.with_label_values(&[stage, label, bucket]))
             .observe(value);
     }
-    super::scaling::record_stages(seconds, label, tokens, bucket);
-    let (sentences, token_count) = SENTENCE_HANDLES[d].get_or_init(|| {
+    super::scaling::record_stages(seconds, cpu_seconds, label, tokens, bucket);
+    let (sentences, token_count, cpu) = SENTENCE_HANDLES[d].get_or_init(|| {
         (
             SENTENCES.with_label_values(&[label]),
             TOKENS.with_label_values(&[label]),
+            PARSE_CPU.with_label_values(&[label]),
         )
     });
     sentences.inc();
+    cpu.inc_by(cpu_seconds.max(0.0));
     token_count.inc_by(tokens as u64);
 }
 
@@ -152,6 +160,24 @@ pub static QUEUE_WAIT: LazyLock<Histogram> = LazyLock::new(|| {
                 "Time an admitted request waits for a parsing thread",
             )
             .buckets(buckets),
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// The name under which the scaling tracker keeps a sentence's CPU seconds beside its stages.
+pub const CPU_STAGE: &str = "cpu";
+
+/// CPU seconds of the parsing threads per decoder: with `arcwright_sentences_total`, what a
+/// sentence costs a core, whatever else the machine was doing.
+pub static PARSE_CPU: LazyLock<prometheus::CounterVec> = LazyLock::new(|| {
+    register(
+        prometheus::CounterVec::new(
+            Opts::new(
+                "arcwright_parse_cpu_seconds_total",
+                "CPU seconds the parsing threads spent on sentences (tag, score, decode, confidences, labels)",
+            ),
+            &["decoder"],
         )
         .expect("valid metric"),
     )
@@ -441,6 +467,20 @@ pub static COST_MODEL_ERROR: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
     )
 });
 
+/// How far a replica's speed moved over its window (the same work at different times), relative.
+pub static COST_MODEL_SPEED_DRIFT: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_cost_model_speed_drift",
+                "Spread of the median residual ln(observed / cost model) between time segments of the window, as e^spread - 1",
+            ),
+            &["stage", "decoder"],
+        )
+        .expect("valid metric"),
+    )
+});
+
 /// Lengths at which the cost models' predictions are exported.
 pub const COST_MODEL_LENGTHS: [usize; 7] = [8, 16, 32, 64, 128, 256, 512];
 
@@ -503,6 +543,11 @@ pub fn render() -> String {
         COST_MODEL_ERROR
             .with_label_values(&[stage, decoder])
             .set(model.max_log_error());
+        if let Some(drift) = model.speed_drift {
+            COST_MODEL_SPEED_DRIFT
+                .with_label_values(&[stage, decoder])
+                .set(drift);
+        }
     }
     for (stage, decoder, fit) in fits {
         SCALING_EXPONENT

@@ -7,6 +7,7 @@
 //! requests within the grace period, exit 0.
 
 pub mod config;
+pub mod cpu_clock;
 mod demo_model;
 pub mod errors;
 pub mod grpc;

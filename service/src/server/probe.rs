@@ -21,6 +21,8 @@ use arcwright_parser::decode::{self, Algorithm, RootConstraint, ScoreMatrix, ref
 use arcwright_parser::hashing::SplitMix64;
 use serde::Serialize;
 
+use super::cpu_clock::thread_seconds;
+
 /// Sentence lengths decoded by the probe.
 pub const LENGTHS: [usize; 5] = [32, 64, 128, 256, 512];
 /// Decodes per length and decoder; the fastest counts.
@@ -125,21 +127,6 @@ pub struct Status {
 
 pub static STATUS: LazyLock<Mutex<Status>> = LazyLock::new(|| Mutex::new(Status::default()));
 
-/// The calling thread's CPU time.
-fn thread_cpu_seconds() -> f64 {
-    let mut ts = libc::timespec {
-        tv_sec: 0,
-        tv_nsec: 0,
-    };
-    #[allow(unsafe_code)] // a libc call std does not wrap
-    // SAFETY: `ts` is a valid, writable timespec; CLOCK_THREAD_CPUTIME_ID needs no other state.
-    let rc = unsafe { libc::clock_gettime(libc::CLOCK_THREAD_CPUTIME_ID, &mut ts) };
-    if rc != 0 {
-        return 0.0;
-    }
-    ts.tv_sec as f64 + ts.tv_nsec as f64 * 1e-9
-}
-
 /// Puts the calling thread in the idle scheduling class; says whether it worked.
 fn become_idle_class() -> bool {
     let param = libc::sched_param { sched_priority: 0 };
@@ -186,9 +173,9 @@ fn time_decodes(words: usize, instances: usize, decode: &dyn Fn(&ScoreMatrix)) -
         let scores = synthetic_scores(words, 0x0a7c_5eed + instance as u64);
         let mut best: Option<(f64, f64)> = None;
         for _ in 0..REPEATS {
-            let (cpu, wall) = (thread_cpu_seconds(), Instant::now());
+            let (cpu, wall) = (thread_seconds(), Instant::now());
             decode(std::hint::black_box(&scores));
-            let time = (thread_cpu_seconds() - cpu, wall.elapsed().as_secs_f64());
+            let time = (thread_seconds() - cpu, wall.elapsed().as_secs_f64());
             if best.is_none_or(|b| time.0 < b.0) {
                 best = Some(time);
             }
@@ -254,14 +241,14 @@ pub fn probe_decoder(decoder: Algorithm, slowed: bool) -> DecoderResult {
 
 /// One run over both decoders.
 pub fn run_once(slowed: bool) -> Run {
-    let cpu = thread_cpu_seconds();
+    let cpu = thread_seconds();
     let decoders = [Algorithm::Projective, Algorithm::NonProjective]
         .into_iter()
         .map(|d| probe_decoder(d, slowed))
         .collect();
     Run {
         decoders,
-        cpu_seconds: thread_cpu_seconds() - cpu,
+        cpu_seconds: thread_seconds() - cpu,
         finished_unix_seconds: std::time::SystemTime::now()
             .duration_since(std::time::UNIX_EPOCH)
             .map_or(0.0, |d| d.as_secs_f64()),

@@ -11,6 +11,7 @@ use arcwright_parser::tokenize::{self, Abbreviations};
 use tokio::sync::Semaphore;
 
 use super::config::Limits;
+use super::cpu_clock;
 use super::errors::{ApiError, ErrorCode};
 use super::metrics::{self, Stage};
 use super::registry::{Registry, Served};
@@ -471,11 +472,12 @@ fn parse_sentence(
         untracked: 0.0,
     };
     times.seconds[Stage::Tokenize as usize] = tokenize_seconds;
-    let total = Instant::now();
+    let (total, cpu) = (Instant::now(), cpu_clock::thread_seconds());
     let parsed = model.parse_observed(&work.forms, work.tags.as_deref(), options, &mut times);
     times.seconds[Stage::Total as usize] = total.elapsed().as_secs_f64();
+    let cpu = cpu_clock::thread_seconds() - cpu;
     if record_metrics {
-        metrics::record_sentence(&times.seconds, parsed.decoder, tokens);
+        metrics::record_sentence(&times.seconds, cpu, parsed.decoder, tokens);
     }
     tokens_out(work.forms, parsed)
 }
@@ -508,7 +510,10 @@ fn parse_group(
         .iter_mut()
         .map(|t| t as &mut dyn StageObserver)
         .collect();
+    let cpu = cpu_clock::thread_seconds();
     let parsed = pipeline::parse_many(&served.model, &inputs, options, &mut observers);
+    // The group's CPU time in equal shares, as its joint scoring time.
+    let cpu = (cpu_clock::thread_seconds() - cpu) / group.len().max(1) as f64;
     drop(observers);
     group
         .into_iter()
@@ -520,7 +525,7 @@ fn parse_group(
                 + times.seconds[Stage::Score as usize]
                 + times.seconds[Stage::Decode as usize]
                 + times.untracked;
-            metrics::record_sentence(&times.seconds, parsed.decoder, work.forms.len());
+            metrics::record_sentence(&times.seconds, cpu, parsed.decoder, work.forms.len());
             (work.input, tokens_out(work.forms, parsed))
         })
         .collect()

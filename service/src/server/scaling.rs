@@ -24,7 +24,7 @@ use std::sync::{LazyLock, Mutex};
 
 use serde::Serialize;
 
-use super::metrics::STAGES;
+use super::metrics::{CPU_STAGE, STAGES};
 
 /// Sentences kept per (stage, decoder) for the fit.
 pub const WINDOW: usize = 4096;
@@ -33,8 +33,8 @@ const BUCKET_WINDOW: usize = 1024;
 /// Shortest sentence used in fits.
 pub const MIN_TOKENS: usize = 8;
 
-/// (tokens, seconds) per sentence, oldest first.
-type Samples = VecDeque<(usize, f64)>;
+/// (tokens, seconds, arrival number) per sentence, oldest first.
+type Samples = VecDeque<(usize, f64, u64)>;
 
 #[derive(Debug, Default)]
 struct Series {
@@ -95,8 +95,11 @@ impl Series {
 #[derive(Debug, Default)]
 pub struct Tracker {
     series: BTreeMap<(&'static str, &'static str), Series>,
-    /// (tokens, seconds) of the most recent sentences per (stage, decoder, length bucket).
+    /// (tokens, seconds, arrival) of the most recent sentences per (stage, decoder, length
+    /// bucket).
     buckets: BTreeMap<(&'static str, &'static str, &'static str), Samples>,
+    /// Arrival number of the next sample: orders samples of different buckets in time.
+    arrivals: u64,
 }
 
 impl Tracker {
@@ -109,7 +112,8 @@ impl Tracker {
         seconds: f64,
     ) {
         let durations = self.buckets.entry((stage, decoder, bucket)).or_default();
-        durations.push_back((tokens, seconds));
+        durations.push_back((tokens, seconds, self.arrivals));
+        self.arrivals += 1;
         if durations.len() > BUCKET_WINDOW {
             durations.pop_front();
         }
@@ -165,7 +169,10 @@ impl Tracker {
                     serde_json::json!({"stage": stage, "decoder": decoder, "tokens": tokens,
                                        "seconds": m.seconds(tokens as f64),
                                        "relative_error": m.max_relative_error,
-                                       "held_out_relative_error": m.held_out_relative_error})
+                                       "interpolation_relative_error": m.interpolation_relative_error,
+                                       "extrapolation_relative_error": m.extrapolation_relative_error,
+                                       "speed_drift": m.speed_drift,
+                                       "held_out_relative_error": m.held_out_relative_error(tokens as f64)})
                 })
                 .collect();
             report["prediction"] =
@@ -201,7 +208,11 @@ impl Tracker {
                 let mut lengths: Vec<usize> =
                     buckets.iter().flat_map(|b| b.iter().map(|s| s.0)).collect();
                 lengths.sort_unstable();
-                CostModel::fit(&points, &lengths).map(|m| (stage, decoder, m))
+                let mut model = CostModel::fit(&points, &lengths)?;
+                let samples: Vec<(usize, f64, u64)> =
+                    buckets.iter().flat_map(|b| b.iter().copied()).collect();
+                model.speed_drift = speed_drift(&model, samples);
+                Some((stage, decoder, model))
             })
             .collect()
     }
@@ -239,10 +250,17 @@ pub struct CostModel {
     pub buckets: Vec<(f64, f64, f64, f64)>,
     /// The largest |model − observed| / observed over the buckets.
     pub max_relative_error: f64,
-    /// What to expect of a length the model has not seen: each bucket left out in turn, the model
-    /// refitted on the others, and that bucket predicted; the largest |model − observed| /
-    /// observed (none with fewer than three buckets).
-    pub held_out_relative_error: Option<f64>,
+    /// How well the model's shape predicts a length it has not seen between the shortest and the
+    /// longest bucket: each inner bucket left out in turn, the model refitted on the others, and
+    /// that bucket predicted; the largest |model − observed| / observed (none with fewer than
+    /// three buckets).
+    pub interpolation_relative_error: Option<f64>,
+    /// The same for the two end buckets, each predicted from the others: what to expect of a
+    /// length beyond the traffic's range.
+    pub extrapolation_relative_error: Option<f64>,
+    /// How far this replica's speed moved over the window, the same work measured at different
+    /// times: see [`speed_drift`] (none with too few samples).
+    pub speed_drift: Option<f64>,
 }
 
 impl CostModel {
@@ -253,6 +271,28 @@ impl CostModel {
             .filter(|b| b.1 > 0.0 && b.2 > 0.0)
             .map(|b| (b.2 / b.1).ln().abs())
             .fold(0.0, f64::max)
+    }
+
+    /// The shortest and the longest bucket's median length.
+    pub fn length_range(&self) -> (f64, f64) {
+        self.buckets
+            .iter()
+            .fold((f64::MAX, f64::MIN), |(lo, hi), b| {
+                (lo.min(b.0), hi.max(b.0))
+            })
+    }
+
+    /// The stated error of a prediction for `n` tokens measured later: the leave-one-bucket-out
+    /// error that applies (interpolation within the buckets' lengths, extrapolation beyond)
+    /// compounded with the speed drift, (1 + e)·(1 + drift) − 1.
+    pub fn held_out_relative_error(&self, n: f64) -> Option<f64> {
+        let (shortest, longest) = self.length_range();
+        let shape = if (shortest..=longest).contains(&n) {
+            self.interpolation_relative_error
+        } else {
+            self.extrapolation_relative_error
+        }?;
+        Some((1.0 + shape) * (1.0 + self.speed_drift.unwrap_or(0.0)) - 1.0)
     }
 
     pub fn seconds(&self, n: f64) -> f64 {
@@ -287,7 +327,9 @@ impl CostModel {
             slope_at_p99: 0.0,
             buckets: Vec::new(),
             max_relative_error: 0.0,
-            held_out_relative_error: None,
+            interpolation_relative_error: None,
+            extrapolation_relative_error: None,
+            speed_drift: None,
         };
         model.cubic_dominates_from = (c > 0.0)
             .then(|| {
@@ -308,25 +350,65 @@ impl CostModel {
             })
             .collect();
         model.max_relative_error = model.buckets.iter().map(|b| b.3.abs()).fold(0.0, f64::max);
-        model.held_out_relative_error = (points.len() >= 3).then(|| {
-            (0..points.len())
-                .map(|k| {
-                    let rest: Vec<BucketPoint> = points
-                        .iter()
-                        .enumerate()
-                        .filter(|&(i, _)| i != k)
-                        .map(|(_, p)| *p)
-                        .collect();
-                    let [a, l, b, c] = nnls(&rest);
-                    let n = points[k].tokens;
-                    let predicted = a + l * n + b * n * n + c * n * n * n;
-                    (predicted - points[k].median_seconds).abs()
-                        / points[k].median_seconds.max(1e-12)
-                })
-                .fold(0.0, f64::max)
-        });
+        if points.len() >= 3 {
+            let held_out = |k: usize| {
+                let rest: Vec<BucketPoint> = points
+                    .iter()
+                    .enumerate()
+                    .filter(|&(i, _)| i != k)
+                    .map(|(_, p)| *p)
+                    .collect();
+                let [a, l, b, c] = nnls(&rest);
+                let n = points[k].tokens;
+                let predicted = a + l * n + b * n * n + c * n * n * n;
+                (predicted - points[k].median_seconds).abs() / points[k].median_seconds.max(1e-12)
+            };
+            let (shortest, longest) = model.length_range();
+            let (mut inner, mut outer) = (None::<f64>, None::<f64>);
+            for (k, p) in points.iter().enumerate() {
+                let side = if p.tokens <= shortest || p.tokens >= longest {
+                    &mut outer
+                } else {
+                    &mut inner
+                };
+                *side = Some(side.unwrap_or(0.0).max(held_out(k)));
+            }
+            model.interpolation_relative_error = inner;
+            model.extrapolation_relative_error = outer;
+        }
         Some(model)
     }
+}
+
+/// Samples per time segment of [`speed_drift`] at least, and segments at most.
+const DRIFT_SEGMENT: usize = 64;
+const DRIFT_SEGMENTS: usize = 8;
+
+/// How much the replica's speed moved over the window: every sample's residual
+/// ln(observed / model(n)) takes the sentence's length out, the samples are cut in arrival order
+/// into up to eight segments of at least 64, and the spread of the segments' median residuals,
+/// e^(max − min) − 1, is the drift. It includes the sampling noise of a median of that many
+/// sentences, which a bucket measured later has too. `None` with fewer than two segments.
+pub fn speed_drift(model: &CostModel, mut samples: Vec<(usize, f64, u64)>) -> Option<f64> {
+    samples.retain(|s| s.1 > 0.0 && model.seconds(s.0 as f64) > 0.0);
+    let segments = (samples.len() / DRIFT_SEGMENT).min(DRIFT_SEGMENTS);
+    if segments < 2 {
+        return None;
+    }
+    samples.sort_unstable_by_key(|s| s.2);
+    let residuals: Vec<f64> = samples
+        .iter()
+        .map(|s| (s.1 / model.seconds(s.0 as f64)).ln())
+        .collect();
+    let medians = (0..segments).map(|k| {
+        let mut part = residuals
+            [k * residuals.len() / segments..(k + 1) * residuals.len() / segments]
+            .to_vec();
+        part.sort_by(f64::total_cmp);
+        part[part.len() / 2]
+    });
+    let (low, high) = medians.fold((f64::MAX, f64::MIN), |(lo, hi), m| (lo.min(m), hi.max(m)));
+    Some((high - low).exp() - 1.0)
 }
 
 /// Terms of the cost model: 1, n, n², n³.
@@ -420,9 +502,11 @@ fn solve(m: &mut [[f64; TERMS + 1]; TERMS], k: usize) -> Option<[f64; TERMS]> {
 
 pub static TRACKER: LazyLock<Mutex<Tracker>> = LazyLock::new(|| Mutex::new(Tracker::default()));
 
-/// Records one sentence's stage durations under one lock (the parsing threads share the tracker).
+/// Records one sentence's stage durations and CPU seconds under one lock (the parsing threads
+/// share the tracker).
 pub fn record_stages(
     seconds: &[f64; STAGES.len()],
+    cpu_seconds: f64,
     decoder: &'static str,
     tokens: usize,
     bucket: &'static str,
@@ -431,6 +515,7 @@ pub fn record_stages(
         for (stage, &value) in STAGES.iter().zip(seconds) {
             tracker.record(stage, decoder, tokens, bucket, value);
         }
+        tracker.record(CPU_STAGE, decoder, tokens, bucket, cpu_seconds);
     }
 }
 
@@ -511,12 +596,55 @@ mod cost_model_tests {
         assert_eq!(m.cubic_dominates_from, Some(23));
         assert!(m.max_relative_error < 1e-9);
         // Exact data: every bucket left out is predicted exactly by the others.
-        assert!(m.held_out_relative_error.is_some_and(|e| e < 1e-6));
+        assert!(m.interpolation_relative_error.is_some_and(|e| e < 1e-6));
+        assert!(m.extrapolation_relative_error.is_some_and(|e| e < 1e-6));
         // Local slope at n: (l n + 2b n² + 3c n³) / t(n).
         let n = 195.0;
         let expected = (1e-8 * n + 2e-9 * n * n + 3e-9 * n * n * n) / truth(n);
         assert!((m.slope(n) - expected).abs() < 1e-12);
         assert_eq!(m.median_tokens, 195);
+    }
+
+    /// The drift is the spread of the segments' median residuals: none at a steady speed, e^0.2
+    /// − 1 when the second half of the window ran 20% (in log) slower, whatever the lengths;
+    /// the stated held-out error compounds it with the leave-one-out error.
+    #[test]
+    fn speed_drift_sees_the_machine_slow_down() {
+        let truth = |n: f64| 1e-5 + 1e-8 * n + 1e-9 * n * n + 1e-9 * n * n * n;
+        let steady = |slow: f64| {
+            let mut tracker = Tracker::default();
+            for i in 0..1024 {
+                let n = 6 + (i * 37) % 120;
+                let bucket = ["16", "32", "64", "128"]
+                    [(n > 16) as usize + (n > 32) as usize + (n > 64) as usize];
+                let factor = if i >= 512 { slow } else { 1.0 };
+                tracker.record("total", "projective", n, bucket, truth(n as f64) * factor);
+            }
+            tracker.cost_models().remove(0).2
+        };
+        let m = steady(1.0);
+        assert!(m.speed_drift.is_some_and(|d| d.abs() < 1e-9), "{m:?}");
+        let (stated, inner) = (
+            m.held_out_relative_error(50.0),
+            m.interpolation_relative_error,
+        );
+        assert!(
+            stated.zip(inner).is_some_and(|(s, i)| (s - i).abs() < 1e-9),
+            "{m:?}"
+        );
+        let m = steady(0.2f64.exp());
+        let drift = m.speed_drift.expect("drift");
+        assert!((drift - (0.2f64.exp() - 1.0)).abs() < 0.02, "{drift}");
+        // Within the buckets' lengths the interpolation error applies, beyond them the
+        // extrapolation error.
+        let inner = m.interpolation_relative_error.expect("interpolation");
+        let outer = m.extrapolation_relative_error.expect("extrapolation");
+        let stated = m.held_out_relative_error(50.0).expect("stated");
+        assert!((stated - ((1.0 + inner) * (1.0 + drift) - 1.0)).abs() < 1e-12);
+        let beyond = m.held_out_relative_error(500.0).expect("stated");
+        assert!((beyond - ((1.0 + outer) * (1.0 + drift) - 1.0)).abs() < 1e-12);
+        // Too few samples for two segments: no drift stated.
+        assert_eq!(speed_drift(&m, vec![(10, 1e-3, 0); 100]), None);
     }
 
     /// Where the unconstrained fit would make a coefficient negative, NNLS sets it to zero; the
