@@ -14,7 +14,12 @@
 //! models/<name>/versions/<version>/<payload files…>
 //! models/<name>/versions/<version>/manifest.json      (written last)
 //! models/<name>/aliases/<alias>.json                  ({"version", "history", "updated"})
+//! models/<name>/audit/<time>-<digest>.json            (one decision each, create-only)
 //! ```
+//!
+//! Every alias move made through [`Store::promote`] / [`Store::roll_back`] (and every refusal
+//! recorded with [`Store::record_refusal`]) appends an [`AuditEntry`]: who, from what to what,
+//! why, on which evidence.
 //!
 //! Names (models and aliases): 1–64 characters from `a–z 0–9 . _ -`, starting with a letter or
 //! digit, no `..`. Version ids are made by the store:
@@ -22,9 +27,11 @@
 //! digits), so they sort by time and two concurrent publishes differ.
 
 mod aliases;
+mod audit;
 mod backends;
 mod error;
 mod fetch;
+pub mod gate;
 mod layout;
 mod manifest;
 mod names;
@@ -34,6 +41,7 @@ mod time;
 mod watch;
 
 pub use aliases::AliasRecord;
+pub use audit::{Action, AuditEntry, Decision};
 pub use error::StoreError;
 pub use manifest::{ArtifactInfo, FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
 pub use names::{validate_name, validate_version};

@@ -549,3 +549,133 @@ async fn object_urls_read_write_and_name_what_is_missing() {
         "out/x.conllu"
     );
 }
+
+/// Every move through `promote` / `roll_back` and every recorded refusal is one audit entry, in
+/// order, with who, from, to, why and the evidence; a promote to where the alias already points
+/// records nothing; entries appended at the same moment by many writers are all kept.
+#[tokio::test]
+async fn alias_decisions_are_kept_in_the_audit_log() {
+    use arcwright_store::{Action, Decision};
+    let tmp = tempfile::tempdir().expect("tempdir");
+    let store = Store::open(&store_dir(tmp.path())).expect("open");
+    let mut versions = Vec::new();
+    for seed in 0..2 {
+        artifact(&tmp.path().join(format!("model{seed}")), seed);
+        let dir = tmp.path().join(format!("model{seed}"));
+        let manifest = store
+            .publish("m", &dir, ArtifactInfo::default())
+            .await
+            .expect("publish");
+        versions.push(manifest.version);
+    }
+    let decision = |actor: &str, reason: &str| Decision {
+        actor: actor.to_string(),
+        reason: reason.to_string(),
+        evidence: serde_json::json!({"sentences": 7}),
+    };
+    store
+        .promote("m", "live", &versions[0], decision("cli:ops", "first"))
+        .await
+        .expect("promote");
+    store
+        .promote("m", "live", &versions[0], decision("cli:ops", "again"))
+        .await
+        .expect("same target");
+    store
+        .record_refusal("m", "live", &versions[1], decision("replica:a", "gate"))
+        .await
+        .expect("refusal");
+    store
+        .promote(
+            "m",
+            "live",
+            &versions[1],
+            decision("replica:b", "gates passed"),
+        )
+        .await
+        .expect("promote");
+    store
+        .roll_back("m", "live", decision("replica:b", "errors"))
+        .await
+        .expect("rollback");
+    let log = store.history("m").await.expect("history");
+    let summary: Vec<(Action, Option<&str>, &str, &str)> = log
+        .iter()
+        .map(|e| {
+            (
+                e.action,
+                e.from.as_deref(),
+                e.to.as_str(),
+                e.reason.as_str(),
+            )
+        })
+        .collect();
+    assert_eq!(
+        summary,
+        vec![
+            (Action::Promote, None, versions[0].as_str(), "first"),
+            (
+                Action::Refused,
+                Some(versions[0].as_str()),
+                versions[1].as_str(),
+                "gate"
+            ),
+            (
+                Action::Promote,
+                Some(versions[0].as_str()),
+                versions[1].as_str(),
+                "gates passed"
+            ),
+            (
+                Action::Rollback,
+                Some(versions[1].as_str()),
+                versions[0].as_str(),
+                "errors"
+            ),
+        ]
+    );
+    assert!(log.iter().all(|e| e.model == "m" && e.alias == "live"));
+    assert_eq!(log[2].actor, "replica:b");
+    assert_eq!(log[2].evidence["sentences"], 7);
+    // Concurrent appenders: 16 writers at once, none lost.
+    let store = std::sync::Arc::new(store);
+    let writers: Vec<_> = (0..16)
+        .map(|i| {
+            let store = store.clone();
+            let version = versions[i % 2].clone();
+            tokio::spawn(async move {
+                store
+                    .record_refusal(
+                        "m",
+                        "live",
+                        &version,
+                        Decision {
+                            actor: format!("replica:{i}"),
+                            reason: "concurrent".to_string(),
+                            evidence: serde_json::Value::Null,
+                        },
+                    )
+                    .await
+            })
+        })
+        .collect();
+    for writer in writers {
+        writer.await.expect("join").expect("append");
+    }
+    let log = store.history("m").await.expect("history");
+    assert_eq!(log.len(), 4 + 16);
+    // A damaged entry is an error naming it, not a silent gap.
+    let audit = tmp.path().join("store/models/m/audit");
+    let first = std::fs::read_dir(&audit)
+        .expect("audit dir")
+        .next()
+        .expect("entry")
+        .expect("entry")
+        .path();
+    std::fs::write(&first, b"{not json").expect("damage");
+    let error = store.history("m").await.expect_err("damaged").to_string();
+    assert!(
+        error.contains("audit entry") && error.contains("not readable"),
+        "{error}"
+    );
+}

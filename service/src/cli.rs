@@ -171,6 +171,16 @@ pub enum StoreAction {
         /// Alias name.
         #[arg(long, default_value = "live")]
         alias: String,
+        /// Refuse a version whose manifest LAS or UAS is more than this many points below the
+        /// version the alias points at now, scored on the same evaluation data.
+        #[arg(long, default_value_t = 0.5, value_name = "POINTS")]
+        max_drop: f64,
+        /// Promote even when the score gate refuses (recorded as forced in the audit log).
+        #[arg(long)]
+        force: bool,
+        /// Why, for the audit log.
+        #[arg(long, default_value = "")]
+        reason: String,
     },
     /// Move an alias (default `live`) back to its previous target.
     #[command(
@@ -183,6 +193,21 @@ pub enum StoreAction {
         /// Alias name.
         #[arg(long, default_value = "live")]
         alias: String,
+        /// Why, for the audit log.
+        #[arg(long, default_value = "")]
+        reason: String,
+    },
+    /// The audit log of a model: every alias move and refusal, oldest first.
+    #[command(
+        after_help = "Example:\n  arcwright store history --store ./arcwright-store --name harbour"
+    )]
+    History {
+        /// Model name.
+        #[arg(long)]
+        name: String,
+        /// One JSON document instead of a table.
+        #[arg(long)]
+        json: bool,
     },
     /// Re-check the checksums of one version, or of every version of a model.
     #[command(

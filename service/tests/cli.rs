@@ -488,3 +488,161 @@ fn a_model_from_demo_data_through_the_commands() {
     assert_eq!(code, 0, "the printed settings read back: {stderr}");
     std::fs::remove_dir_all(&dir).ok();
 }
+
+/// `store promote` compares the manifests' scores on the same evaluation data: a version more
+/// than `--max-drop` points worse than live is refused (and the refusal logged), `--force`
+/// promotes it with the override logged, scores on other data are not compared, and
+/// `store history` lists every decision in order.
+#[test]
+fn the_score_gate_refuses_a_worse_version_and_the_log_keeps_every_decision() {
+    let dir = scratch("gate");
+    let path = |p: &str| dir.join(p).display().to_string();
+    let (code, demo, stderr) = run(&["demo-data", "--sentences", "300", "--seed", "11"], b"");
+    assert_eq!(code, 0, "{stderr}");
+    std::fs::write(dir.join("demo.conllu"), &demo).expect("write");
+    let (code, other, _) = run(&["demo-data", "--sentences", "40", "--seed", "12"], b"");
+    assert_eq!(code, 0);
+    std::fs::write(dir.join("other.conllu"), &other).expect("write");
+    let few: String = demo.split("\n\n").take(8).collect::<Vec<_>>().join("\n\n") + "\n\n";
+    std::fs::write(dir.join("few.conllu"), few).expect("write");
+    for (model, train, epochs) in [("good", "demo.conllu", "3"), ("weak", "few.conllu", "1")] {
+        let (code, _, stderr) = run(
+            &[
+                "train",
+                "--train",
+                &path(train),
+                "--out",
+                &path(model),
+                "--epochs",
+                epochs,
+            ],
+            b"",
+        );
+        assert_eq!(code, 0, "{stderr}");
+    }
+    let scores = |model: &str, gold: &str| -> serde_json::Value {
+        let (code, stdout, stderr) = run(
+            &["eval", "--model", &path(model), "--gold", &path(gold)],
+            b"",
+        );
+        assert_eq!(code, 0, "{stderr}");
+        std::fs::write(dir.join(format!("{model}-{gold}.json")), &stdout).expect("write");
+        serde_json::from_str(&stdout).expect("JSON report")
+    };
+    let (good, weak) = (scores("good", "demo.conllu"), scores("weak", "demo.conllu"));
+    scores("weak", "other.conllu");
+    assert_eq!(
+        good["gold_fingerprint_fnv64"],
+        weak["gold_fingerprint_fnv64"]
+    );
+    let (good_las, weak_las) = (
+        good["las"].as_f64().expect("las"),
+        weak["las"].as_f64().expect("las"),
+    );
+    assert!(
+        good_las > weak_las + 0.5,
+        "the weak model must be worse: {good_las} vs {weak_las}"
+    );
+    let store = path("store");
+    let publish = |model: &str, scores: &str| -> String {
+        let (code, stdout, stderr) = run(
+            &[
+                "store",
+                "publish",
+                "--store",
+                &store,
+                "--name",
+                "m",
+                &path(model),
+                "--scores",
+                &path(scores),
+            ],
+            b"",
+        );
+        assert_eq!(code, 0, "{stderr}");
+        stdout.trim().to_string()
+    };
+    let good_version = publish("good", "good-demo.conllu.json");
+    let weak_version = publish("weak", "weak-demo.conllu.json");
+    let elsewhere_version = publish("weak", "weak-other.conllu.json");
+    let promote = |version: &str, extra: &[&str]| {
+        let mut args = vec![
+            "store",
+            "promote",
+            "--store",
+            &store,
+            "--name",
+            "m",
+            "--version",
+            version,
+        ];
+        args.extend_from_slice(extra);
+        run(&args, b"")
+    };
+    let (code, _, stderr) = promote(&good_version, &[]);
+    assert_eq!(code, 0, "{stderr}");
+    assert!(stderr.contains("no live version"), "{stderr}");
+    let (code, _, stderr) = promote(&weak_version, &[]);
+    assert_eq!(code, 2, "{stderr}");
+    assert!(
+        stderr.contains("scores worse than live")
+            && stderr.contains("LAS")
+            && stderr.contains("--force"),
+        "{stderr}"
+    );
+    let (code, _, stderr) = promote(
+        &weak_version,
+        &["--force", "--reason", "hotfix for a label"],
+    );
+    assert_eq!(code, 0, "{stderr}");
+    let (code, _, stderr) = promote(&elsewhere_version, &[]);
+    assert_eq!(code, 0, "{stderr}");
+    assert!(stderr.contains("different evaluation data"), "{stderr}");
+    let (code, _, stderr) = run(
+        &[
+            "store", "rollback", "--store", &store, "--name", "m", "--reason", "paged",
+        ],
+        b"",
+    );
+    assert_eq!(code, 0, "{stderr}");
+    let (code, stdout, stderr) = run(
+        &[
+            "store", "history", "--store", &store, "--name", "m", "--json",
+        ],
+        b"",
+    );
+    assert_eq!(code, 0, "{stderr}");
+    let log: Vec<serde_json::Value> = serde_json::from_str(&stdout).expect("JSON log");
+    let summary: Vec<(&str, &str)> = log
+        .iter()
+        .map(|e| {
+            (
+                e["action"].as_str().unwrap_or(""),
+                e["to"].as_str().unwrap_or(""),
+            )
+        })
+        .collect();
+    assert_eq!(
+        summary,
+        vec![
+            ("promote", good_version.as_str()),
+            ("refused", weak_version.as_str()),
+            ("promote", weak_version.as_str()),
+            ("promote", elsewhere_version.as_str()),
+            ("rollback", weak_version.as_str()),
+        ]
+    );
+    assert_eq!(log[1]["evidence"]["score_gate"]["live"]["las"], good["las"]);
+    assert_eq!(log[2]["reason"], "hotfix for a label");
+    assert_eq!(log[2]["evidence"]["forced"], true);
+    assert!(log[3]["evidence"]["score_gate"]["not_compared"].is_string());
+    assert_eq!(log[4]["reason"], "paged");
+    assert!(
+        log.iter()
+            .all(|e| e["actor"].as_str().is_some_and(|a| a.starts_with("cli:")))
+    );
+    let (code, table, _) = run(&["store", "history", "--store", &store, "--name", "m"], b"");
+    assert_eq!(code, 0);
+    assert_eq!(table.lines().count(), 1 + 5, "{table}");
+    std::fs::remove_dir_all(&dir).ok();
+}

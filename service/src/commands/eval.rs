@@ -70,6 +70,14 @@ pub fn run(options: &EvalOptions) -> Result<(), Failure> {
     let elapsed = started.elapsed().as_secs_f64();
     let mut report = evaluator.report();
     report["decoder"] = serde_json::json!(decoder.unwrap_or(model.default_decoder).name());
+    // Which evaluation data the scores are on: a promote compares two versions' scores only
+    // when this matches.
+    let gold_bytes = std::fs::read(&options.gold)
+        .map_err(|e| Failure::runtime(format!("{}: cannot read: {e}", options.gold.display())))?;
+    report["gold_fingerprint_fnv64"] = serde_json::json!(format!(
+        "{:016x}",
+        arcwright_parser::hashing::fingerprint(&gold_bytes)
+    ));
     report["tags"] = serde_json::json!(if options.gold_tags {
         "gold"
     } else {

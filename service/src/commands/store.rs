@@ -1,6 +1,6 @@
 //! `arcwright store …`: the model store from the command line.
 
-use arcwright_store::{Store, StoreError};
+use arcwright_store::{Decision, Store, StoreError, gate};
 
 use super::Failure;
 use crate::cli::{StoreAction, StoreOptions};
@@ -152,9 +152,78 @@ async fn run_action(store: &Store, action: &StoreAction) -> Result<(), Failure> 
             name,
             version,
             alias,
+            max_drop,
+            force,
+            reason,
         } => {
+            if !max_drop.is_finite() || *max_drop < 0.0 {
+                return Err(Failure::bad_input(format!(
+                    "--max-drop {max_drop}: give a number of points of at least 0"
+                )));
+            }
+            let live = match store.alias(name, alias).await.map_err(failure)? {
+                Some(record) => Some(
+                    store
+                        .manifest(name, &record.version)
+                        .await
+                        .map_err(failure)?,
+                ),
+                None => None,
+            };
+            let candidate = store.manifest(name, version).await.map_err(failure)?;
+            let given = |default: &str| {
+                if reason.is_empty() {
+                    default.to_string()
+                } else {
+                    reason.clone()
+                }
+            };
+            let decision = match gate::compare(live.as_ref(), &candidate, *max_drop) {
+                gate::Verdict::Pass { evidence } => Decision {
+                    actor: actor(),
+                    reason: given("promoted from the command line; score gate passed"),
+                    evidence: serde_json::json!({ "score_gate": evidence }),
+                },
+                gate::Verdict::NotComparable { reason: why } => {
+                    eprintln!("score gate: not compared: {why}");
+                    Decision {
+                        actor: actor(),
+                        reason: given("promoted from the command line; scores not compared"),
+                        evidence: serde_json::json!({ "score_gate": { "not_compared": why } }),
+                    }
+                }
+                gate::Verdict::Worse {
+                    reason: why,
+                    evidence,
+                } => {
+                    if !*force {
+                        store
+                            .record_refusal(
+                                name,
+                                alias,
+                                version,
+                                Decision {
+                                    actor: actor(),
+                                    reason: format!("refused by the score gate: {why}"),
+                                    evidence: serde_json::json!({ "score_gate": evidence }),
+                                },
+                            )
+                            .await
+                            .map_err(failure)?;
+                        return Err(Failure::bad_input(format!(
+                            "{why}; not promoted (give --force to promote anyway)"
+                        )));
+                    }
+                    eprintln!("score gate: {why}; promoting anyway (--force)");
+                    Decision {
+                        actor: actor(),
+                        reason: given(&format!("forced past the score gate: {why}")),
+                        evidence: serde_json::json!({ "score_gate": evidence, "forced": true }),
+                    }
+                }
+            };
             let record = store
-                .set_alias(name, alias, version)
+                .promote(name, alias, version, decision)
                 .await
                 .map_err(failure)?;
             println!(
@@ -166,9 +235,51 @@ async fn run_action(store: &Store, action: &StoreAction) -> Result<(), Failure> 
                     .map_or(String::new(), |p| format!(" (was {p})"))
             );
         }
-        StoreAction::Rollback { name, alias } => {
-            let record = store.rollback(name, alias).await.map_err(failure)?;
+        StoreAction::Rollback {
+            name,
+            alias,
+            reason,
+        } => {
+            let decision = Decision {
+                actor: actor(),
+                reason: if reason.is_empty() {
+                    "rolled back from the command line".to_string()
+                } else {
+                    reason.clone()
+                },
+                evidence: serde_json::Value::Null,
+            };
+            let record = store
+                .roll_back(name, alias, decision)
+                .await
+                .map_err(failure)?;
             println!("{name} {alias} → {}", record.version);
+        }
+        StoreAction::History { name, json } => {
+            let entries = store.history(name).await.map_err(failure)?;
+            if *json {
+                println!(
+                    "{}",
+                    serde_json::to_string_pretty(&entries).map_err(Failure::runtime)?
+                );
+            } else {
+                println!("time\talias\taction\tfrom\tto\tactor\treason");
+                for e in &entries {
+                    println!(
+                        "{}\t{}\t{}\t{}\t{}\t{}\t{}",
+                        e.time,
+                        e.alias,
+                        serde_json::to_value(e.action)
+                            .ok()
+                            .and_then(|v| v.as_str().map(str::to_string))
+                            .unwrap_or_default(),
+                        e.from.as_deref().unwrap_or("-"),
+                        e.to,
+                        e.actor,
+                        e.reason
+                    );
+                }
+            }
         }
         StoreAction::Verify { name, version } => {
             let versions = match version {
@@ -288,4 +399,14 @@ fn unix_millis() -> u128 {
     std::time::SystemTime::now()
         .duration_since(std::time::UNIX_EPOCH)
         .map_or(0, |d| d.as_millis())
+}
+
+/// Who is deciding, from the command line: `cli:` and the user's login name.
+fn actor() -> String {
+    format!(
+        "cli:{}",
+        std::env::var("USER")
+            .or_else(|_| std::env::var("LOGNAME"))
+            .unwrap_or_else(|_| "unknown".to_string())
+    )
 }

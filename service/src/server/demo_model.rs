@@ -42,7 +42,14 @@ pub async fn publish_demo_model(store: &Store) -> Result<(), StartupError> {
     let info = crate::commands::store::artifact_info(&dir, None)
         .map_err(|e| StartupError::Demo(e.to_string()))?;
     let manifest = store.publish("demo", &dir, info).await?;
-    store.set_alias("demo", "live", &manifest.version).await?;
+    let decision = arcwright_store::Decision {
+        actor: "bootstrap".to_string(),
+        reason: "the built-in demo model, built at first start on an empty store".to_string(),
+        evidence: serde_json::Value::Null,
+    };
+    store
+        .promote("demo", "live", &manifest.version, decision)
+        .await?;
     let _ = std::fs::remove_dir_all(&dir);
     tracing::info!(version = %manifest.version, seconds = started.elapsed().as_secs_f64(), "demo model published as demo/live");
     Ok(())

@@ -159,9 +159,14 @@ pub async fn activate(
         }
         other => ApiError::new(ErrorCode::StoreUnavailable, other.to_string()),
     };
+    let decision = arcwright_store::Decision {
+        actor: "admin-api".to_string(),
+        reason: "promote requested through the admin API".to_string(),
+        evidence: serde_json::Value::Null,
+    };
     let record = registry
         .store()
-        .set_alias(name, "live", version)
+        .promote(name, "live", version, decision)
         .await
         .map_err(store_error)?;
     registry.load_and_swap(name, version).await.map_err(|m| {
