@@ -57,7 +57,7 @@ impl Store {
             .map(|(record, _)| record))
     }
 
-    async fn alias_with_tag(
+    pub(crate) async fn alias_with_tag(
         &self,
         name: &str,
         alias: &str,
@@ -143,7 +143,7 @@ impl Store {
         .await
     }
 
-    async fn write_alias(
+    pub(crate) async fn write_alias(
         &self,
         name: &str,
         alias: &str,

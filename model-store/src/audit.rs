@@ -57,10 +57,127 @@ pub struct Decision {
     pub evidence: serde_json::Value,
 }
 
+/// What an automatic decision came to.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Decided {
+    /// The alias moved; the entry was written once (by whichever decider got there first).
+    Moved(AliasRecord),
+    /// The alias already pointed at the target: another decider moved it.
+    AlreadyThere,
+    /// The alias no longer pointed at the version the decision was taken on; nothing was done.
+    Stale { current: Option<String> },
+}
+
 impl Store {
+    /// Moves `alias` from `expected` to `to` for a decider that is one of several (replicas):
+    /// a compare-and-swap against the alias state it read, where the backend supports it, and
+    /// an audit entry keyed by that state, so replicas deciding the same thing at once leave
+    /// one move and one entry. `to` is verified first. On a backend without conditional writes
+    /// (a local directory) two deciders that read the same state both write the same target,
+    /// and the log still holds one entry.
+    pub async fn decide_move(
+        &self,
+        name: &str,
+        alias: &str,
+        expected: &str,
+        to: &str,
+        action: Action,
+        decision: Decision,
+    ) -> Result<Decided, StoreError> {
+        self.verify(name, to).await?;
+        let Some((record, tag)) = self.alias_with_tag(name, alias).await? else {
+            return Ok(Decided::Stale { current: None });
+        };
+        if record.version == to {
+            return Ok(Decided::AlreadyThere);
+        }
+        if record.version != expected {
+            return Ok(Decided::Stale {
+                current: Some(record.version),
+            });
+        }
+        let history = if record.history.first().map(String::as_str) == Some(to) {
+            record.history[1..].to_vec()
+        } else {
+            let mut history = vec![record.version.clone()];
+            history.extend(record.history.iter().cloned());
+            history.truncate(20);
+            history
+        };
+        let state = record.updated.clone();
+        let moved = match self
+            .write_alias(
+                name,
+                alias,
+                AliasRecord {
+                    version: to.to_string(),
+                    history,
+                    updated: now().0,
+                },
+                Some(tag),
+            )
+            .await
+        {
+            Ok(moved) => moved,
+            Err(StoreError::Conflict { .. }) => {
+                let current = self.alias(name, alias).await?.map(|r| r.version);
+                return Ok(if current.as_deref() == Some(to) {
+                    Decided::AlreadyThere
+                } else {
+                    Decided::Stale { current }
+                });
+            }
+            Err(e) => return Err(e),
+        };
+        let entry = AuditEntry {
+            time: now().0,
+            model: name.to_string(),
+            alias: alias.to_string(),
+            action,
+            from: Some(expected.to_string()),
+            to: to.to_string(),
+            actor: decision.actor,
+            reason: decision.reason,
+            evidence: decision.evidence,
+        };
+        self.append_audit_once(&entry, &state).await.map_err(|e| {
+            StoreError::Invalid(format!(
+                "alias {alias} of model {name}: {action:?} to {to} took effect, but its audit entry \
+                 could not be written: {e}"
+            ))
+        })?;
+        Ok(Decided::Moved(moved))
+    }
+
+    /// Records a refusal several deciders may reach at once (keyed by the refused version and
+    /// the alias state, so one entry); returns whether this call wrote it.
+    pub async fn record_refusal_once(
+        &self,
+        name: &str,
+        alias: &str,
+        version: &str,
+        decision: Decision,
+    ) -> Result<bool, StoreError> {
+        let current = self.alias(name, alias).await?;
+        let state = current
+            .as_ref()
+            .map_or(String::new(), |r| r.updated.clone());
+        let entry = AuditEntry {
+            time: now().0,
+            model: name.to_string(),
+            alias: alias.to_string(),
+            action: Action::Refused,
+            from: current.map(|r| r.version),
+            to: version.to_string(),
+            actor: decision.actor,
+            reason: decision.reason,
+            evidence: decision.evidence,
+        };
+        self.append_audit_once(&entry, &state).await
+    }
+
     /// Appends one entry to a model's audit log; returns its key's file name.
     pub async fn append_audit(&self, entry: &AuditEntry) -> Result<String, StoreError> {
-        validate_name("model", &entry.model)?;
         let bytes =
             serde_json::to_vec_pretty(entry).map_err(|e| StoreError::Invalid(e.to_string()))?;
         // The digest also takes the clock's nanoseconds, the process id and a counter, so two
@@ -88,11 +205,51 @@ impl Store {
             .filter(|c| !matches!(c, '-' | ':'))
             .collect();
         let file = format!("{stamp}-{}.json", &digest[..8]);
+        self.put_audit(entry, &file, bytes).await?;
+        Ok(file)
+    }
+
+    /// Appends the entry of a decision that several deciders may take at once (replicas that
+    /// read the same state): its key is made from the decision and the state it was taken on,
+    /// so the first writer's entry is kept and the others' are the same key. Returns whether
+    /// this call wrote it.
+    pub async fn append_audit_once(
+        &self,
+        entry: &AuditEntry,
+        state: &str,
+    ) -> Result<bool, StoreError> {
+        let bytes =
+            serde_json::to_vec_pretty(entry).map_err(|e| StoreError::Invalid(e.to_string()))?;
+        let mut hasher = Sha256::new();
+        for part in [
+            entry.alias.as_str(),
+            &format!("{:?}", entry.action),
+            entry.from.as_deref().unwrap_or("-"),
+            &entry.to,
+            state,
+        ] {
+            hasher.update(part.as_bytes());
+            hasher.update([0]);
+        }
+        let file = format!("decision-{}.json", &hex::encode(hasher.finalize())[..16]);
+        match self.put_audit(entry, &file, bytes).await {
+            Ok(()) => Ok(true),
+            Err(StoreError::Exists { .. }) => Ok(false),
+            Err(e) => Err(e),
+        }
+    }
+
+    async fn put_audit(
+        &self,
+        entry: &AuditEntry,
+        file: &str,
+        bytes: Vec<u8>,
+    ) -> Result<(), StoreError> {
+        validate_name("model", &entry.model)?;
         let key = layout::model(&self.root, &entry.model)
             .child("audit")
-            .child(file.as_str());
-        self.put_new(&key, bytes).await?;
-        Ok(file)
+            .child(file);
+        self.put_new(&key, bytes).await
     }
 
     /// A model's audit log, oldest first. An entry that cannot be read is an error naming it:
@@ -125,6 +282,9 @@ impl Store {
             })?;
             entries.push(entry);
         }
+        // Oldest first: by the decision's time (keys of decisions taken once do not sort by
+        // time), the key breaking ties.
+        entries.sort_by(|a: &AuditEntry, b: &AuditEntry| a.time.cmp(&b.time));
         Ok(entries)
     }
 

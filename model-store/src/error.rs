@@ -46,6 +46,8 @@ pub enum StoreError {
     },
     #[error("alias {alias} of model {name} changed while it was being moved; try again")]
     Conflict { name: String, alias: String },
+    #[error("{what} exists already")]
+    Exists { what: String },
     #[error("{0}")]
     Invalid(String),
 }

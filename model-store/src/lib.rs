@@ -41,7 +41,7 @@ mod time;
 mod watch;
 
 pub use aliases::AliasRecord;
-pub use audit::{Action, AuditEntry, Decision};
+pub use audit::{Action, AuditEntry, Decided, Decision};
 pub use error::StoreError;
 pub use manifest::{ArtifactInfo, FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
 pub use names::{validate_name, validate_version};

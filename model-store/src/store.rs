@@ -133,6 +133,9 @@ impl Store {
             .await
         {
             Ok(_) => Ok(()),
+            Err(object_store::Error::AlreadyExists { .. }) => Err(StoreError::Exists {
+                what: key.to_string(),
+            }),
             Err(object_store::Error::NotImplemented) => self
                 .objects
                 .put(key, PutPayload::from(bytes))

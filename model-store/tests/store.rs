@@ -679,3 +679,124 @@ async fn alias_decisions_are_kept_in_the_audit_log() {
         "{error}"
     );
 }
+
+/// Deciders that read the same state and decide the same move leave one move and one audit
+/// entry; a decision taken on a state that has changed since does nothing.
+#[tokio::test]
+async fn concurrent_automatic_decisions_leave_one_entry() {
+    use arcwright_store::{Action, Decided, Decision};
+    let tmp = tempfile::tempdir().expect("tempdir");
+    let store = std::sync::Arc::new(Store::open(&store_dir(tmp.path())).expect("open"));
+    let mut versions = Vec::new();
+    for seed in 0..3 {
+        let dir = tmp.path().join(format!("model{seed}"));
+        artifact(&dir, seed);
+        versions.push(
+            store
+                .publish("m", &dir, ArtifactInfo::default())
+                .await
+                .expect("publish")
+                .version,
+        );
+    }
+    store
+        .set_alias("m", "live", &versions[0])
+        .await
+        .expect("live");
+    let deciders: Vec<_> = (0..8)
+        .map(|i| {
+            let (store, from, to) = (store.clone(), versions[0].clone(), versions[1].clone());
+            tokio::spawn(async move {
+                store
+                    .decide_move(
+                        "m",
+                        "live",
+                        &from,
+                        &to,
+                        Action::Promote,
+                        Decision {
+                            actor: format!("replica:{i}"),
+                            reason: "gates passed".to_string(),
+                            evidence: serde_json::Value::Null,
+                        },
+                    )
+                    .await
+            })
+        })
+        .collect();
+    for decider in deciders {
+        let outcome = decider.await.expect("join").expect("decide");
+        assert!(
+            matches!(outcome, Decided::Moved(_) | Decided::AlreadyThere),
+            "{outcome:?}"
+        );
+    }
+    assert_eq!(
+        store
+            .alias("m", "live")
+            .await
+            .expect("alias")
+            .map(|r| r.version),
+        Some(versions[1].clone())
+    );
+    let log = store.history("m").await.expect("history");
+    assert_eq!(log.len(), 1, "{log:?}");
+    assert_eq!(
+        (log[0].action, log[0].from.as_deref(), log[0].to.as_str()),
+        (
+            Action::Promote,
+            Some(versions[0].as_str()),
+            versions[1].as_str()
+        )
+    );
+    // Taken on the old state: nothing moves, nothing is written.
+    let stale = store
+        .decide_move(
+            "m",
+            "live",
+            &versions[0],
+            &versions[2],
+            Action::Promote,
+            Decision::default(),
+        )
+        .await
+        .expect("decide");
+    assert_eq!(
+        stale,
+        Decided::Stale {
+            current: Some(versions[1].clone())
+        }
+    );
+    // A rollback decided by several goes back to the previous target, once.
+    for _ in 0..3 {
+        store
+            .decide_move(
+                "m",
+                "live",
+                &versions[1],
+                &versions[0],
+                Action::Rollback,
+                Decision::default(),
+            )
+            .await
+            .expect("rollback");
+    }
+    let record = store
+        .alias("m", "live")
+        .await
+        .expect("alias")
+        .expect("live");
+    assert_eq!(
+        (record.version.as_str(), record.history.len()),
+        (versions[0].as_str(), 0)
+    );
+    assert_eq!(store.history("m").await.expect("history").len(), 2);
+    // The same refusal reached by three deciders is one entry.
+    for _ in 0..3 {
+        store
+            .record_refusal_once("m", "live", &versions[2], Decision::default())
+            .await
+            .expect("refusal");
+    }
+    assert_eq!(store.history("m").await.expect("history").len(), 3);
+}
