@@ -48,6 +48,7 @@ fn config(store: &std::path::Path, cache: &std::path::Path, deadline: Duration) 
             interval: Duration::ZERO,
             slowed: false,
         },
+        rollout: arcwright::server::rollout::RolloutSettings::default(),
     }
 }
 
@@ -552,4 +553,111 @@ async fn the_shown_sentences_parse_sensibly_with_the_demo_model() {
             .collect();
         assert_eq!(got, want, "{text}");
     }
+}
+
+/// A candidate identical to live (the same files published again) is shadowed on every
+/// request, agrees on every word, and is promoted automatically once enough sentences were
+/// compared: the `live` alias moves by compare-and-swap, this replica swaps, and the audit log
+/// holds one entry naming the replica and the evidence. Replies never depended on it.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_candidate_is_shadowed_and_promoted_once_its_gates_pass() {
+    let tmp = tempfile::tempdir().expect("tempdir");
+    let mut settings = config(
+        &tmp.path().join("store"),
+        &tmp.path().join("cache"),
+        Duration::from_secs(10),
+    );
+    settings.rollout = arcwright::server::rollout::RolloutSettings {
+        sample: 1.0,
+        automatic: true,
+        min_sentences: 24,
+        min_agreement: 0.99,
+        max_latency_ratio: 5.0,
+        replica: "in-process".to_string(),
+    };
+    let state = server::build_state(&settings).await.expect("state");
+    let registry = state.engine.registry.clone();
+    let store = registry.store().clone();
+    let live = store
+        .alias("demo", "live")
+        .await
+        .expect("alias")
+        .expect("live")
+        .version;
+    let (files, _) = store
+        .fetch("demo", &live, &tmp.path().join("fetched"))
+        .await
+        .expect("fetch");
+    let candidate = store
+        .publish("demo", &files, arcwright_store::ArtifactInfo::default())
+        .await
+        .expect("publish")
+        .version;
+    store
+        .set_alias("demo", "candidate", &candidate)
+        .await
+        .expect("candidate alias");
+    registry.follow_once().await;
+    assert_eq!(
+        registry.candidate("demo").map(|c| c.version.clone()),
+        Some(candidate.clone())
+    );
+    state.engine.rollout.start(registry.clone());
+    for i in 0..30 {
+        let text = format!(
+            "The crane operator moved {} blue containers to berth {i}.",
+            i + 2
+        );
+        let (status, body) = call(
+            &state,
+            "POST",
+            "/v1/parse",
+            serde_json::json!({ "text": text }).to_string().into_bytes(),
+            None,
+        )
+        .await;
+        assert_eq!(status, StatusCode::OK, "{body}");
+    }
+    let mut rollout = serde_json::Value::Null;
+    for _ in 0..200 {
+        rollout = call(&state, "GET", "/v1/models/demo/rollout", Vec::new(), None)
+            .await
+            .1;
+        if rollout["shadow"]["decision"] == "promoted" {
+            break;
+        }
+        tokio::time::sleep(Duration::from_millis(100)).await;
+    }
+    assert_eq!(rollout["shadow"]["decision"], "promoted", "{rollout:#}");
+    assert_eq!(
+        rollout["shadow"]["total"]["head_agreement"], 1.0,
+        "{rollout:#}"
+    );
+    assert_eq!(rollout["shadow"]["total"]["errors"], 0);
+    assert_eq!(
+        store
+            .alias("demo", "live")
+            .await
+            .expect("alias")
+            .map(|r| r.version),
+        Some(candidate.clone())
+    );
+    assert_eq!(
+        registry.snapshot(Some("demo")).expect("served").version,
+        candidate
+    );
+    let log = store.history("demo").await.expect("history");
+    let promotes: Vec<_> = log
+        .iter()
+        .filter(|e| e.action == arcwright_store::Action::Promote && e.to == candidate)
+        .collect();
+    assert_eq!(promotes.len(), 1, "{log:?}");
+    assert_eq!(promotes[0].actor, "replica:in-process");
+    assert_eq!(promotes[0].from.as_deref(), Some(live.as_str()));
+    assert!(promotes[0].evidence["shadow"]["buckets"].is_object());
+    // Live and candidate are now the same version: nothing is shadowed any more.
+    let after = call(&state, "GET", "/v1/models/demo/rollout", Vec::new(), None)
+        .await
+        .1;
+    assert_eq!(after["shadowing"], false, "{after:#}");
 }

@@ -124,6 +124,30 @@ pub struct ServeArgs {
     #[arg(long, env = "ARCWRIGHT_PROBE_SLOWED", hide = true)]
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub probe_slowed: bool,
+    /// Share of requests to a model with a `candidate` version that the candidate also parses,
+    /// off the reply path (0 = none).
+    #[arg(long, env = "ARCWRIGHT_SHADOW_SAMPLE", default_value_t = 0.1)]
+    pub shadow_sample: f64,
+    /// Candidates are promoted by hand ("manual") or by this replica once its shadow parses
+    /// pass the gates ("automatic").
+    #[arg(long, env = "ARCWRIGHT_ROLLOUT", default_value = "manual", value_parser = ["manual", "automatic"])]
+    pub rollout: String,
+    /// Sentences a candidate must have been compared on before an automatic decision.
+    #[arg(long, env = "ARCWRIGHT_ROLLOUT_MIN_SENTENCES", default_value_t = 500)]
+    pub rollout_min_sentences: u64,
+    /// Least share of words whose head the candidate chooses as live does.
+    #[arg(long, env = "ARCWRIGHT_ROLLOUT_MIN_AGREEMENT", default_value_t = 0.9)]
+    pub rollout_min_agreement: f64,
+    /// Most candidate CPU time per live CPU time on the same sentences.
+    #[arg(
+        long,
+        env = "ARCWRIGHT_ROLLOUT_MAX_LATENCY_RATIO",
+        default_value_t = 1.5
+    )]
+    pub rollout_max_latency_ratio: f64,
+    /// This replica's name in the store's audit log (default: the host name).
+    #[arg(long, env = "ARCWRIGHT_REPLICA_ID")]
+    pub replica_id: Option<String>,
     /// Optional settings file (TOML): the flag names above as keys, without `--`
     /// (`max-tokens = 256`, `store = "s3://bucket/prefix"`). A flag or an environment variable
     /// wins over the file.
@@ -154,6 +178,7 @@ pub struct Config {
     pub threads: usize,
     pub grace: Duration,
     pub probe: super::probe::ProbeSettings,
+    pub rollout: super::rollout::RolloutSettings,
 }
 
 impl std::fmt::Debug for Config {
@@ -174,6 +199,7 @@ impl std::fmt::Debug for Config {
             .field("threads", &self.threads)
             .field("grace", &self.grace)
             .field("probe", &self.probe)
+            .field("rollout", &self.rollout)
             .finish()
     }
 }
@@ -196,6 +222,18 @@ fn seconds(flag: &'static str, value: f64) -> Result<Duration, ConfigError> {
             flag,
             value: value.to_string(),
             reason: "must be a number of seconds between 0 and 86400",
+        })
+    }
+}
+
+fn share(flag: &'static str, value: f64) -> Result<f64, ConfigError> {
+    if (0.0..=1.0).contains(&value) {
+        Ok(value)
+    } else {
+        Err(ConfigError::Value {
+            flag,
+            value: value.to_string(),
+            reason: "must be a share between 0 and 1",
         })
     }
 }
@@ -339,6 +377,50 @@ impl ServeArgs {
                     seconds("probe-seconds", self.probe_seconds)?
                 },
                 slowed: self.probe_slowed,
+            },
+            rollout: super::rollout::RolloutSettings {
+                sample: share("shadow-sample", self.shadow_sample)?,
+                automatic: match self.rollout.as_str() {
+                    "manual" => false,
+                    "automatic" => true,
+                    other => {
+                        return Err(ConfigError::Value {
+                            flag: "rollout",
+                            value: other.to_string(),
+                            reason: "must be manual or automatic",
+                        });
+                    }
+                },
+                min_sentences: self.rollout_min_sentences.max(1),
+                min_agreement: share("rollout-min-agreement", self.rollout_min_agreement)?,
+                max_latency_ratio: if self.rollout_max_latency_ratio.is_finite()
+                    && self.rollout_max_latency_ratio >= 1.0
+                {
+                    self.rollout_max_latency_ratio
+                } else {
+                    return Err(ConfigError::Value {
+                        flag: "rollout-max-latency-ratio",
+                        value: self.rollout_max_latency_ratio.to_string(),
+                        reason: "must be a ratio of at least 1",
+                    });
+                },
+                replica: match &self.replica_id {
+                    Some(id) => {
+                        arcwright_store::validate_name("replica id", id).map_err(|_| {
+                            ConfigError::Value {
+                                flag: "replica-id",
+                                value: id.clone(),
+                                reason: "must be 1-64 characters from a-z 0-9 . _ -",
+                            }
+                        })?;
+                        id.clone()
+                    }
+                    None => std::fs::read_to_string("/proc/sys/kernel/hostname")
+                        .map(|h| h.trim().to_string())
+                        .ok()
+                        .filter(|h| !h.is_empty())
+                        .unwrap_or_else(|| format!("pid-{}", std::process::id())),
+                },
             },
         })
     }

@@ -178,6 +178,7 @@ pub fn router(state: Arc<AppState>) -> Router {
         .route("/v1/parse/batch", post(parse_batch))
         .route("/v1/models", get(models))
         .route("/v1/models/{name}/activate", post(activate))
+        .route("/v1/models/{name}/rollout", get(rollout))
         .route("/v1/openapi.json", get(openapi))
         .route("/v1/scaling", get(scaling))
         .merge(super::ui::routes())
@@ -413,6 +414,19 @@ pub(super) async fn activate(
         model: ModelRef { name, version },
         previous_version: previous,
     }))
+}
+
+#[utoipa::path(get, path = "/v1/models/{name}/rollout",
+    summary = "The model's candidate judged on shadow traffic: agreement with live, latency ratio and errors per length bucket, the gates and their decision, and the audit log's latest entries",
+    params(("name" = String, Path, description = "Model name")),
+    responses((status = 200, description = "Rollout state", body = Object),
+        (status = 404, description = "Unknown model", body = ErrorResponse),
+        (status = 503, description = "Store unavailable", body = ErrorResponse)))]
+pub(super) async fn rollout(
+    State(state): State<Arc<AppState>>,
+    Path(name): Path<String>,
+) -> Result<Json<serde_json::Value>, ApiError> {
+    Ok(Json(super::rollout_status(&state, &name).await?))
 }
 
 #[utoipa::path(get, path = "/readyz", summary = "Readiness: a model is loaded",

@@ -60,8 +60,16 @@ fn decoder_index(decoder: Algorithm) -> usize {
     }
 }
 
+/// The label of a sentence length's bucket.
+pub fn length_bucket(tokens: usize) -> &'static str {
+    LENGTH_BUCKETS
+        .iter()
+        .find(|(bound, _)| tokens <= *bound)
+        .map_or("+Inf", |b| b.1)
+}
+
 /// Length buckets: upper bounds and their labels.
-const LENGTH_BUCKETS: [(usize, &str); 8] = [
+pub const LENGTH_BUCKETS: [(usize, &str); 8] = [
     (8, "8"),
     (16, "16"),
     (32, "32"),
@@ -480,6 +488,95 @@ pub static COST_MODEL_SPEED_DRIFT: LazyLock<prometheus::GaugeVec> = LazyLock::ne
         .expect("valid metric"),
     )
 });
+
+/// Shadow parses of candidates, by model and outcome (compared, error, shed).
+pub static SHADOW_SENTENCES: LazyLock<IntCounterVec> = LazyLock::new(|| {
+    register(
+        IntCounterVec::new(
+            Opts::new(
+                "arcwright_shadow_sentences_total",
+                "Sentences of sampled live requests also parsed by the model's candidate version: compared, error (the candidate failed), shed (the shadow queue was full)",
+            ),
+            &["model", "outcome"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// Agreement of a candidate's trees with the live ones, per length bucket.
+pub static SHADOW_AGREEMENT: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_shadow_agreement",
+                "Share of words whose head (kind=heads) or head and label (kind=heads_and_labels) from the candidate equals the live version's, since the candidate was loaded",
+            ),
+            &["model", "length_bucket", "kind"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// Candidate CPU time per live CPU time on the same sentences, per length bucket.
+pub static SHADOW_LATENCY_RATIO: LazyLock<prometheus::GaugeVec> = LazyLock::new(|| {
+    register(
+        prometheus::GaugeVec::new(
+            Opts::new(
+                "arcwright_shadow_latency_ratio",
+                "Candidate CPU seconds per live CPU seconds on the same shadowed sentences",
+            ),
+            &["model", "length_bucket"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+/// Automatic rollout decisions this replica took.
+pub static ROLLOUT_DECISIONS: LazyLock<IntCounterVec> = LazyLock::new(|| {
+    register(
+        IntCounterVec::new(
+            Opts::new(
+                "arcwright_rollout_decisions_total",
+                "Automatic rollout decisions taken by this replica (promoted, refused, rolled-back)",
+            ),
+            &["model", "decision"],
+        )
+        .expect("valid metric"),
+    )
+});
+
+pub fn record_rollout_decision(model: &str, decision: &str) {
+    ROLLOUT_DECISIONS
+        .with_label_values(&[model, decision])
+        .inc();
+}
+
+/// Sets the shadow gauges of a model from its comparison.
+pub fn set_shadow(model: &str, comparison: &super::rollout::Comparison) {
+    let total = comparison.total();
+    let rows = comparison
+        .buckets
+        .iter()
+        .map(|(b, c)| (*b, c))
+        .chain(std::iter::once(("all", &total)));
+    for (bucket, counts) in rows {
+        if let Some(a) = counts.head_agreement() {
+            SHADOW_AGREEMENT
+                .with_label_values(&[model, bucket, "heads"])
+                .set(a);
+        }
+        if let Some(a) = counts.label_agreement() {
+            SHADOW_AGREEMENT
+                .with_label_values(&[model, bucket, "heads_and_labels"])
+                .set(a);
+        }
+        if let Some(r) = counts.latency_ratio() {
+            SHADOW_LATENCY_RATIO
+                .with_label_values(&[model, bucket])
+                .set(r);
+        }
+    }
+}
 
 /// Lengths at which the cost models' predictions are exported.
 pub const COST_MODEL_LENGTHS: [usize; 7] = [8, 16, 32, 64, 128, 256, 512];

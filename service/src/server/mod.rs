@@ -17,6 +17,7 @@ mod openapi;
 pub mod probe;
 pub mod registry;
 pub mod request;
+pub mod rollout;
 pub mod scaling;
 mod ui;
 
@@ -138,6 +139,81 @@ pub async fn models_status(state: &AppState) -> Result<serde_json::Value, ApiErr
     Ok(serde_json::json!({ "models": models, "admin_routes": state.admin_token.is_some() }))
 }
 
+/// The rollout state of one model: its candidate, the shadow comparison with live per length
+/// bucket, what the gates make of it, and the audit log's latest entries.
+pub async fn rollout_status(state: &AppState, name: &str) -> Result<serde_json::Value, ApiError> {
+    let engine = &state.engine;
+    let live = engine.registry.snapshot(Some(name))?;
+    let candidate = engine.registry.candidate(name);
+    let settings = &engine.rollout.settings;
+    let comparison = engine.rollout.comparison(name).filter(|c| {
+        candidate
+            .as_ref()
+            .is_some_and(|v| v.version == c.candidate_version)
+    });
+    let row = |bucket: &str, c: &rollout::BucketCounts| {
+        serde_json::json!({
+            "length_bucket": bucket,
+            "sentences": c.sentences,
+            "words": c.words,
+            "errors": c.errors,
+            "head_agreement": c.head_agreement(),
+            "label_agreement": c.label_agreement(),
+            "latency_ratio": c.latency_ratio(),
+            "live_cpu_seconds": c.live_cpu_seconds,
+            "candidate_cpu_seconds": c.candidate_cpu_seconds,
+        })
+    };
+    let shadow = comparison.as_ref().map(|c| {
+        let judgement = match rollout::judge(c, settings) {
+            rollout::Judgement::Waiting => serde_json::json!({"verdict": "waiting",
+                "sentences_needed": settings.min_sentences.saturating_sub(c.total().sentences)}),
+            rollout::Judgement::Promote(reason) => {
+                serde_json::json!({"verdict": "promote", "reason": reason})
+            }
+            rollout::Judgement::Refuse(reason) => {
+                serde_json::json!({"verdict": "refuse", "reason": reason})
+            }
+        };
+        serde_json::json!({
+            "live_version": c.live_version,
+            "candidate_version": c.candidate_version,
+            "started_unix_ms": c.started_unix_ms,
+            "shed": c.shed,
+            "total": row("all", &c.total()),
+            "buckets": c.buckets.iter().map(|(b, counts)| row(b, counts)).collect::<Vec<_>>(),
+            "gates": judgement,
+            "decision": c.decision,
+            "reason": c.reason,
+        })
+    });
+    let store_error =
+        |e: arcwright_store::StoreError| ApiError::new(ErrorCode::StoreUnavailable, e.to_string());
+    let history = engine
+        .registry
+        .store()
+        .history(name)
+        .await
+        .map_err(store_error)?;
+    let recent: Vec<_> = history.iter().rev().take(10).collect();
+    Ok(serde_json::json!({
+        "model": name,
+        "live_version": live.version,
+        "candidate_version": candidate.as_ref().map(|c| c.version.clone()),
+        "shadowing": candidate.as_ref().is_some_and(|c| c.version != live.version) && settings.sample > 0.0,
+        "policy": {
+            "mode": if settings.automatic { "automatic" } else { "manual" },
+            "sample": settings.sample,
+            "min_sentences": settings.min_sentences,
+            "min_agreement": settings.min_agreement,
+            "max_latency_ratio": settings.max_latency_ratio,
+            "replica": settings.replica,
+        },
+        "shadow": shadow,
+        "audit": recent,
+    }))
+}
+
 /// Moves the store's `live` alias to `version` (all replicas follow) and swaps this replica at
 /// once. Returns the new and the previous version.
 pub async fn activate(
@@ -218,6 +294,7 @@ pub async fn build_state(config: &config::Config) -> Result<Arc<AppState>, Start
         .build()?;
     Ok(Arc::new(AppState {
         engine: Engine {
+            rollout: Arc::new(rollout::Rollout::new(config.rollout.clone())),
             registry,
             pool,
             limits: config.limits.clone(),
@@ -277,6 +354,7 @@ pub async fn run(config: config::Config) -> Result<(), StartupError> {
     );
     let follower = tokio::spawn(registry.clone().follow());
     probe::start(config.probe).map_err(StartupError::Probe)?;
+    state.engine.rollout.start(registry.clone());
 
     let (shutdown_tx, shutdown_rx) = tokio::sync::watch::channel(false);
     let http_state = state.clone();

@@ -20,6 +20,7 @@ use super::http;
         http::parse_batch,
         http::models,
         http::activate,
+        http::rollout,
         http::scaling,
         http::healthz,
         http::ready,

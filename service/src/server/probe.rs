@@ -21,7 +21,7 @@ use arcwright_parser::decode::{self, Algorithm, RootConstraint, ScoreMatrix, ref
 use arcwright_parser::hashing::SplitMix64;
 use serde::Serialize;
 
-use super::cpu_clock::thread_seconds;
+use super::cpu_clock::{become_idle_class, thread_seconds};
 
 /// Sentence lengths decoded by the probe.
 pub const LENGTHS: [usize; 5] = [32, 64, 128, 256, 512];
@@ -126,16 +126,6 @@ pub struct Status {
 }
 
 pub static STATUS: LazyLock<Mutex<Status>> = LazyLock::new(|| Mutex::new(Status::default()));
-
-/// Puts the calling thread in the idle scheduling class; says whether it worked.
-fn become_idle_class() -> bool {
-    let param = libc::sched_param { sched_priority: 0 };
-    #[allow(unsafe_code)] // a libc call std does not wrap
-    // SAFETY: pid 0 is the calling thread; `param` is a valid sched_param for SCHED_IDLE.
-    unsafe {
-        libc::sched_setscheduler(0, libc::SCHED_IDLE, &param) == 0
-    }
-}
 
 /// A seeded random score matrix of `words` words (uniform in [−5, 5)).
 pub fn synthetic_scores(words: usize, seed: u64) -> ScoreMatrix {

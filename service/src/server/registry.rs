@@ -59,6 +59,10 @@ pub struct Registry {
     store: Store,
     /// The store's `live` aliases, as they change.
     feed: tokio::sync::Mutex<AliasFeed>,
+    /// The store's `candidate` aliases, as they change.
+    candidate_feed: tokio::sync::Mutex<AliasFeed>,
+    /// Candidate versions loaded for shadow parses, by model name.
+    candidates: RwLock<BTreeMap<String, Arc<Served>>>,
     cache: PathBuf,
     configured_default: Option<String>,
     models: RwLock<BTreeMap<String, Arc<ArcSwap<Served>>>>,
@@ -83,6 +87,12 @@ impl Registry {
     ) -> Self {
         Registry {
             feed: tokio::sync::Mutex::new(AliasFeed::new(store.clone(), "live", poll)),
+            candidate_feed: tokio::sync::Mutex::new(AliasFeed::new(
+                store.clone(),
+                "candidate",
+                poll,
+            )),
+            candidates: RwLock::new(BTreeMap::new()),
             store,
             cache,
             configured_default,
@@ -173,22 +183,7 @@ impl Registry {
             return Ok(slot.load_full());
         }
         let started = Instant::now();
-        let outcome = async {
-            let (dir, _) = self.store.fetch(name, version, &self.cache).await?;
-            tokio::task::spawn_blocking(move || -> Result<Model, LoadError> {
-                let model = Model::load(&dir)?;
-                // Smoke test: a parse must produce a tree.
-                let words: Vec<String> = ["a", "small", "test", "."]
-                    .iter()
-                    .map(|s| s.to_string())
-                    .collect();
-                let parsed = model.parse(&words, None, None, None);
-                arcwright_parser::decode::check_tree(&parsed.heads)?;
-                Ok(model)
-            })
-            .await?
-        }
-        .await;
+        let outcome = self.load_model(name, version).await;
         match outcome {
             Ok(model) => {
                 let served = Arc::new(Served {
@@ -237,6 +232,67 @@ impl Registry {
         }
     }
 
+    /// Fetches (every checksum verified), loads and smoke-parses a version.
+    async fn load_model(&self, name: &str, version: &str) -> Result<Model, LoadError> {
+        let (dir, _) = self.store.fetch(name, version, &self.cache).await?;
+        tokio::task::spawn_blocking(move || -> Result<Model, LoadError> {
+            let model = Model::load(&dir)?;
+            // Smoke test: a parse must produce a tree.
+            let words: Vec<String> = ["a", "small", "test", "."]
+                .iter()
+                .map(|s| s.to_string())
+                .collect();
+            let parsed = model.parse(&words, None, None, None);
+            arcwright_parser::decode::check_tree(&parsed.heads)?;
+            Ok(model)
+        })
+        .await?
+    }
+
+    /// The candidate version of a model, when one is loaded.
+    pub fn candidate(&self, name: &str) -> Option<Arc<Served>> {
+        self.candidates.read().ok()?.get(name).cloned()
+    }
+
+    /// Loads the candidates whose `candidate` alias moved (a version that fails to load is
+    /// logged and left out: shadow parses are never worth a failed start).
+    async fn follow_candidates(&self) {
+        let changes = match self.candidate_feed.lock().await.poll_now().await {
+            Ok(changes) => changes,
+            Err(e) => {
+                tracing::warn!(error = %e, "cannot read the store's candidate aliases; will retry");
+                return;
+            }
+        };
+        for (name, record) in changes {
+            if self
+                .candidate(&name)
+                .is_some_and(|c| c.version == record.version)
+            {
+                continue;
+            }
+            let started = Instant::now();
+            match self.load_model(&name, &record.version).await {
+                Ok(model) => {
+                    tracing::info!(model = %name, version = %record.version, "candidate loaded for shadow parses");
+                    let served = Arc::new(Served {
+                        name: name.clone(),
+                        version: record.version.clone(),
+                        model,
+                        loaded_at: SystemTime::now(),
+                        load_seconds: started.elapsed().as_secs_f64(),
+                    });
+                    if let Ok(mut candidates) = self.candidates.write() {
+                        candidates.insert(name, served);
+                    }
+                }
+                Err(e) => {
+                    tracing::warn!(model = %name, version = %record.version, error = %e, "candidate could not be loaded; not shadowed")
+                }
+            }
+        }
+    }
+
     /// Loads or swaps every model whose `live` alias moved since the last pass. A version that
     /// failed to load is not tried again until the alias moves.
     async fn apply(&self, changes: Vec<(String, arcwright_store::AliasRecord)>) {
@@ -256,6 +312,7 @@ impl Registry {
                 tracing::warn!(error = %e, "cannot read the store's live aliases; will retry")
             }
         }
+        self.follow_candidates().await;
         self.serving().len()
     }
 
@@ -268,7 +325,10 @@ impl Registry {
             let retry_in = feed.delay();
             drop(feed);
             match polled {
-                Ok(changes) => self.apply(changes).await,
+                Ok(changes) => {
+                    self.apply(changes).await;
+                    self.follow_candidates().await;
+                }
                 Err(e) => tracing::warn!(
                     error = %e,
                     retry_in_seconds = retry_in.as_secs_f64(),

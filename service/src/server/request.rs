@@ -87,6 +87,7 @@ pub struct Engine {
     pub pool: rayon::ThreadPool,
     pub limits: Limits,
     pub permits: Arc<Semaphore>,
+    pub rollout: Arc<super::rollout::Rollout>,
 }
 
 /// A validated sentence ready for the pool.
@@ -325,6 +326,18 @@ impl Engine {
         // Each sentence's share of the request's checking and tokenizing, so that a batch's
         // sentences do not each report the whole batch's time.
         let tokenize_seconds = tokenize_started.elapsed().as_secs_f64() / work.len().max(1) as f64;
+        // A sample of the requests to a model with a candidate is copied for shadow parses
+        // (never waited for).
+        self.rollout.offer(
+            &served,
+            self.registry.candidate(&served.name),
+            job.decoder,
+            || {
+                work.iter()
+                    .map(|w| (w.forms.clone(), w.tags.clone()))
+                    .collect()
+            },
+        );
         let (sender, receiver) = tokio::sync::oneshot::channel();
         let snapshot = served.clone();
         let cutoff = started + deadline;
