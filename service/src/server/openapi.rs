@@ -100,6 +100,7 @@ mod tests {
                 "/readyz",
                 "/v1/models",
                 "/v1/models/{name}/activate",
+                "/v1/models/{name}/rollout",
                 "/v1/openapi.json",
                 "/v1/parse",
                 "/v1/parse/batch",
