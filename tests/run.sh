@@ -190,7 +190,7 @@ define clients "install build model" "the Python and Rust clients against a real
     python3 tests/e2e/check_clients.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/clients"
 define store "install build model" "model store on local disk and on an S3-compatible server (moto on 127.0.0.1)" \
     python3 tests/e2e/check_store_s3.py "$BIN" "$MODEL" "$TEST_SPLIT" "$CACHE/work/store"
-define rollout "install build model" "safe rollout under load: a worse candidate refused by the agreement gate, a slower one by the latency gate, a good one promoted; three replicas on one S3 store take one decision; zero failed requests" \
+define rollout "install build model" "safe rollout under load: a worse candidate refused by the agreement gate, a slower one by the latency gate (store policy), a good one promoted; automatic rollback of a failing version; three replicas on one S3 store take one decision; zero failed requests" \
     python3 tests/e2e/check_rollout.py "$BIN" "$MODEL" "$TURKISH/split" "$CACHE/work/rollout"
 define neural "install build" "the neural kind on demo data: trained in a bounded time, eval and parse, served beside a linear version and swapped both ways under load with zero failed requests" \
     python3 tests/e2e/check_neural.py "$BIN" "$CACHE/work/neural"

@@ -15,6 +15,7 @@
 //! models/<name>/versions/<version>/manifest.json      (written last)
 //! models/<name>/aliases/<alias>.json                  ({"version", "history", "updated"})
 //! models/<name>/audit/<time>-<digest>.json            (one decision each, create-only)
+//! models/<name>/rollout-policy.json                   (optional: how candidates are judged)
 //! ```
 //!
 //! Every alias move made through [`Store::promote`] / [`Store::roll_back`] (and every refusal
@@ -36,6 +37,7 @@ mod layout;
 mod manifest;
 mod names;
 mod objects;
+mod policy;
 mod store;
 mod time;
 mod watch;
@@ -46,5 +48,6 @@ pub use error::StoreError;
 pub use manifest::{ArtifactInfo, FileEntry, Manifest, SCHEMA_MAJOR, SCHEMA_VERSION};
 pub use names::{validate_name, validate_version};
 pub use objects::{ObjectUrl, join_url};
+pub use policy::RolloutPolicy;
 pub use store::{Store, VersionSummary};
 pub use watch::{AliasFeed, AliasWatcher, Backoff, MAX_BACKOFF_FACTOR};

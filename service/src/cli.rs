@@ -197,6 +197,37 @@ pub enum StoreAction {
         #[arg(long, default_value = "")]
         reason: String,
     },
+    /// Show or set a model's rollout policy (how replicas judge its candidates; what it leaves
+    /// out, each replica's own settings fill).
+    #[command(
+        after_help = "Example:\n  arcwright store policy --store s3://models/fleet --name harbour --mode automatic --min-agreement 0.92"
+    )]
+    Policy {
+        /// Model name.
+        #[arg(long)]
+        name: String,
+        /// Candidates promoted by hand or by the gates.
+        #[arg(long, value_parser = ["manual", "automatic"])]
+        mode: Option<String>,
+        /// Share of requests the candidate also parses.
+        #[arg(long)]
+        shadow_sample: Option<f64>,
+        /// Sentences compared before an automatic decision.
+        #[arg(long)]
+        min_sentences: Option<u64>,
+        /// Least share of words with live's head.
+        #[arg(long)]
+        min_agreement: Option<f64>,
+        /// Most candidate CPU time per live CPU time.
+        #[arg(long)]
+        max_latency_ratio: Option<f64>,
+        /// Seconds outside the band before an automatic rollback (0 = never).
+        #[arg(long)]
+        rollback_seconds: Option<f64>,
+        /// Start from an empty policy (the replicas' own settings) instead of the current one.
+        #[arg(long)]
+        clear: bool,
+    },
     /// The audit log of a model: every alias move and refusal, oldest first.
     #[command(
         after_help = "Example:\n  arcwright store history --store ./arcwright-store --name harbour"

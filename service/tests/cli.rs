@@ -644,5 +644,30 @@ fn the_score_gate_refuses_a_worse_version_and_the_log_keeps_every_decision() {
     let (code, table, _) = run(&["store", "history", "--store", &store, "--name", "m"], b"");
     assert_eq!(code, 0);
     assert_eq!(table.lines().count(), 1 + 5, "{table}");
+    // The model's rollout policy: set, shown, and a bad value refused naming the field.
+    let policy = |args: &[&str]| {
+        let mut all = vec!["store", "policy", "--store", &store, "--name", "m"];
+        all.extend_from_slice(args);
+        run(&all, b"")
+    };
+    let (code, stdout, stderr) = policy(&["--mode", "automatic", "--min-agreement", "0.95"]);
+    assert_eq!(code, 0, "{stderr}");
+    let expected = serde_json::json!({"mode": "automatic", "min_agreement": 0.95});
+    assert_eq!(
+        serde_json::from_str::<serde_json::Value>(&stdout).expect("JSON"),
+        expected
+    );
+    let (code, _, stderr) = policy(&["--min-agreement", "2"]);
+    assert_eq!(code, 2, "{stderr}");
+    assert!(
+        stderr.contains("min_agreement") && stderr.contains("between 0 and 1"),
+        "{stderr}"
+    );
+    let (code, stdout, _) = policy(&[]);
+    assert_eq!(code, 0);
+    assert_eq!(
+        serde_json::from_str::<serde_json::Value>(&stdout).expect("JSON"),
+        expected
+    );
     std::fs::remove_dir_all(&dir).ok();
 }

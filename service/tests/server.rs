@@ -574,6 +574,7 @@ async fn a_candidate_is_shadowed_and_promoted_once_its_gates_pass() {
         min_agreement: 0.99,
         max_latency_ratio: 5.0,
         replica: "in-process".to_string(),
+        ..Default::default()
     };
     let state = server::build_state(&settings).await.expect("state");
     let registry = state.engine.registry.clone();

@@ -833,6 +833,57 @@ async function copyConllu() {
 }
 
 // ---------------------------------------------------------------------------------------------
+// Rollout
+
+function share(x) {
+  return x === null || x === undefined ? "–" : (100 * x).toFixed(1) + "%";
+}
+
+async function refreshRollout() {
+  const list = $("rollout-list");
+  const names = state.models.filter((m) => m.serving).map((m) => m.name);
+  const blocks = [];
+  for (const name of names) {
+    const reply = await api(`/v1/models/${encodeURIComponent(name)}/rollout`);
+    if (!reply.ok) continue;
+    const r = reply.body;
+    const head = el("p", {},
+      el("strong", {}, name), ` · live ${r.live_version} · `,
+      r.candidate_version && r.candidate_version !== r.live_version
+        ? `candidate ${r.candidate_version} (${r.shadowing ? "shadowed, " + share(r.policy.sample) + " of requests" : "not shadowed"})`
+        : "no candidate",
+      ` · ${r.policy.mode} promotion (at least ${r.policy.min_sentences} sentences, head agreement ≥ ${share(r.policy.min_agreement)}, latency ratio ≤ ${r.policy.max_latency_ratio})`);
+    const block = el("div", { class: "rollout-model" }, head);
+    const shadow = r.shadow;
+    if (shadow) {
+      const row = (b) => el("tr", {},
+        el("td", {}, b.length_bucket === "all" ? "all" : "≤ " + b.length_bucket),
+        el("td", { class: "num" }, String(b.sentences)),
+        el("td", { class: "num" }, share(b.head_agreement)),
+        el("td", { class: "num" }, share(b.label_agreement)),
+        el("td", { class: "num" }, b.latency_ratio === null ? "–" : b.latency_ratio.toFixed(2) + "×"),
+        el("td", { class: "num" }, String(b.errors)));
+      block.append(el("table", { class: "rollout-table" },
+        el("thead", {}, el("tr", {}, ...["length", "sentences", "same head", "same head and label", "CPU ratio", "errors"]
+          .map((h) => el("th", { scope: "col" }, h)))),
+        el("tbody", {}, ...shadow.buckets.map(row), row(shadow.total))));
+      const verdict = shadow.decision
+        ? `decision: ${shadow.decision}${shadow.reason ? " — " + shadow.reason : ""}`
+        : shadow.gates.verdict === "waiting"
+          ? `waiting for ${shadow.gates.sentences_needed} more sentences`
+          : `gates say: ${shadow.gates.verdict} — ${shadow.gates.reason}`;
+      block.append(el("p", { class: "rollout-verdict" }, verdict + ` · ${shadow.shed} samples shed while busy`));
+    }
+    if (r.audit && r.audit.length) {
+      block.append(el("ul", { class: "rollout-audit" }, ...r.audit.slice(0, 5).map((e) =>
+        el("li", {}, `${e.time} · ${e.action} ${e.alias} ${e.from || "–"} → ${e.to} · ${e.actor} · ${e.reason}`))));
+    }
+    blocks.push(block);
+  }
+  list.replaceChildren(...(blocks.length ? blocks : [el("p", { class: "hint" }, "no model served yet")]));
+}
+
+// ---------------------------------------------------------------------------------------------
 // Start-up and polling
 
 function every(seconds, task) {
@@ -863,6 +914,7 @@ document.addEventListener("DOMContentLoaded", () => {
     $("decoder-pick").disabled = $("compare-pick").checked;
   });
   every(3, refreshModels);
+  every(4, refreshRollout);
   every(5, refreshScaling);
   every(2, refreshTraffic);
 });

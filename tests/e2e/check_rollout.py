@@ -11,9 +11,12 @@ split:
 1. One replica, `--rollout automatic`, gates 200 sentences, head agreement 0.85, latency ratio
    1.5, half the requests shadowed. Steady HTTP traffic of the test split's sentences from four
    client threads throughout. `worse` as candidate must be refused for agreement (live stays);
-   then `good` must be promoted (live moves, the replica serves it). Then a replica with the
-   agreement gate off (`--rollout-min-agreement 0`) gets `slower` as candidate against the new
-   live: refused for latency. No client request may fail.
+   then `good` must be promoted (live moves, the replica serves it; the report is the same over
+   gRPC). Then the model's rollout policy in the store turns the agreement gate off
+   (`store policy --min-agreement 0`) and `slower` as candidate against the new live is refused
+   for latency. No client request may fail.
+   Then a version promoted by hand whose requests fail (test switch, 30%) is rolled back
+   automatically after 3 s outside its band, the reason in the audit log, no other failure.
 2. Three replicas on one store on moto's S3 server, all `--rollout automatic`, traffic spread
    over them; `good` as candidate of the original live: exactly one promote entry in the audit
    log, and every replica ends on the same live version.
@@ -48,7 +51,7 @@ class Traffic:
 
     def __init__(self, bases, sentences, threads=4):
         self.bases, self.sentences = bases, sentences
-        self.ok = self.failed = 0
+        self.ok = self.failed = self.injected = 0
         self.errors = []
         self.lock = threading.Lock()
         self.stop = threading.Event()
@@ -70,6 +73,8 @@ class Traffic:
             with self.lock:
                 if status == 200:
                     self.ok += 1
+                elif "injected failure" in str(reply):
+                    self.injected += 1
                 else:
                     self.failed += 1
                     self.errors.append((status, str(reply)[:200]))
@@ -138,8 +143,8 @@ def main():
     live = cs.publish(binary, store, "tr", model)
     cs.promote(binary, store, "tr", live)
     versions = {name: cs.publish(binary, store, "tr", path) for name, path in models.items()}
-    replica, base = cs.start(binary, store, work, cs.free_port(), cs.free_port(), extra=gates())
-    slow_replica = None
+    grpc_port = cs.free_port()
+    replica, base = cs.start(binary, store, work, cs.free_port(), grpc_port, extra=gates())
     traffic = Traffic([base], test)
     try:
         store_cli(binary, "promote", "--store", store, "--name", "tr", "--version", versions["worse"],
@@ -163,30 +168,40 @@ def main():
               f"latency ratio {total.get('latency_ratio')}, shed {shadow.get('shed')}")
         checks.expect(shadow.get("decision") == "promoted", f"the good candidate is promoted: {shadow.get('reason')}")
         time.sleep(1)
+        # The same report over gRPC (ModelAdmin.GetRollout, Python stubs generated from proto/).
+        cs.generate_stubs(os.path.join(work, "stubs"))
+        import grpc
+        from arcwright.v1 import parser_pb2 as pb, parser_pb2_grpc as rpc
+        with grpc.insecure_channel(f"127.0.0.1:{grpc_port}") as channel:
+            over_grpc = rpc.ModelAdminStub(channel).GetRollout(pb.GetRolloutRequest(name="tr"), timeout=10)
+        checks.expect(over_grpc.candidate_version == versions["good"] and over_grpc.decision == "promoted"
+                      and over_grpc.total.sentences >= 200 and over_grpc.total.head_agreement >= 0.85
+                      and over_grpc.mode == "automatic",
+                      f"gRPC GetRollout gives the same report ({over_grpc.total.sentences} sentences, "
+                      f"decision {over_grpc.decision!r})")
         status, models_reply = cs.http(base, "/v1/models")
         serving = next(m for m in models_reply["models"] if m["name"] == "tr")["serving"]["version"]
         checks.expect(serving == versions["good"], f"the replica serves the promoted version ({serving})")
 
-        slow_replica, slow_base = cs.start(binary, store, work, cs.free_port(), cs.free_port(),
-                                           extra=gates(min_agreement="0"))
-        traffic_slow = Traffic([slow_base], test, threads=2)
+        # The model's policy in the store turns the agreement gate off for every replica.
+        policy = json.loads(store_cli(binary, "policy", "--store", store, "--name", "tr", "--min-agreement", "0"))
+        checks.expect(policy == {"min_agreement": 0.0}, f"the store keeps the model's rollout policy: {policy}")
+        time.sleep(2)  # read by the replica at its next poll
         store_cli(binary, "promote", "--store", store, "--name", "tr", "--version", versions["slower"],
                   "--alias", "candidate")
-        report = wait_decision(slow_base, versions["slower"])
-        ok_slow, failed_slow, errors_slow = traffic_slow.finish()
+        report = wait_decision(base, versions["slower"])
         shadow = report["shadow"] or {}
         total = shadow.get("total") or {}
         print(f"slower: {total.get('sentences')} sentences shadowed, head agreement {total.get('head_agreement')}, "
               f"latency ratio {total.get('latency_ratio')}, shed {shadow.get('shed')}")
+        checks.expect(report["policy"]["min_agreement"] == 0 and report["policy"]["from_store"] == {"min_agreement": 0.0},
+                      "the replica applies the store's policy over its own settings")
         checks.expect(shadow.get("decision") == "refused" and "latency ratio" in (shadow.get("reason") or "").split("(")[0],
                       f"the slower candidate is refused by the latency gate: {shadow.get('reason')}")
-        checks.expect(failed_slow == 0, f"{ok_slow} requests to the second replica, {failed_slow} failed {errors_slow}")
     finally:
         ok, failed, errors = traffic.finish()
-        for proc in (replica, slow_replica):
-            if proc:
-                proc.terminate()
-                proc.wait(timeout=30)
+        replica.terminate()
+        replica.wait(timeout=30)
     checks.expect(ok > 0 and failed == 0, f"{ok} client requests during the rollouts, {failed} failed {errors}")
     log = json.loads(store_cli(binary, "history", "--store", store, "--name", "tr", "--json"))
     summary = [(e["action"], e["to"], e["actor"].split(":")[0]) for e in log]
@@ -195,6 +210,38 @@ def main():
                   and [t for _, t, who in summary if who == "replica"]
                   == [versions["worse"], versions["good"], versions["slower"]],
                   "the audit log holds the refusal, the promote and the refusal, in order, by the replicas")
+
+    # 1b. Automatic rollback: a version promoted by hand whose requests fail (the test switch
+    # --inject-failures fails 30% of them) is moved back to the version it replaced.
+    bad = cs.publish(binary, store, "tr", models["worse"])
+    watcher, watcher_base = cs.start(binary, store, work, cs.free_port(), cs.free_port(),
+                                     extra=("--probe-seconds", "0", "--rollback-seconds", "3",
+                                            "--inject-failures", f"{bad}=0.3", "--replica-id", "watcher"))
+    traffic = Traffic([watcher_base], test, threads=2)
+    served = None
+    try:
+        time.sleep(3)  # the serving version's own record, to compare the new one with
+        store_cli(binary, "promote", "--store", store, "--name", "tr", "--version", bad, "--reason", "fault drill")
+        deadline = time.time() + 60
+        while time.time() < deadline:
+            status, reply = cs.http(watcher_base, "/v1/models")
+            served = next(m for m in reply["models"] if m["name"] == "tr")["serving"]["version"]
+            log = json.loads(store_cli(binary, "history", "--store", store, "--name", "tr", "--json"))
+            if served == versions["good"] and any(e["action"] == "rollback" for e in log):
+                break
+            time.sleep(0.5)
+    finally:
+        ok, failed, errors = traffic.finish()
+        injected = traffic.injected
+        watcher.terminate()
+        watcher.wait(timeout=30)
+    rollbacks = [e for e in log if e["action"] == "rollback"]
+    print("rollback:", [(e["actor"], e["reason"]) for e in rollbacks])
+    checks.expect(served == versions["good"] and len(rollbacks) == 1 and rollbacks[0]["from"] == bad
+                  and rollbacks[0]["to"] == versions["good"] and "failure rate" in rollbacks[0]["reason"],
+                  "the failing version was rolled back automatically, with the reason in the audit log")
+    checks.expect(injected > 0 and failed == 0,
+                  f"{ok} requests answered, {injected} failed by the test switch, {failed} other failures {errors}")
 
     # 2. Three replicas on one S3 store: one decision.
     moto, env, _ = start_moto(["models"])

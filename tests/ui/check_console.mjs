@@ -96,6 +96,10 @@ try {
   check(status.includes(MODEL) && status.includes(V1), `status line names the served model and version: ${status.trim()}`);
   const rows = await page.$$eval(`[data-model="${MODEL}"] button.promote`, (b) => b.map((x) => x.dataset.version));
   check(rows.includes(V1) && rows.includes(V2), `every version of ${MODEL} is listed (${rows.length})`);
+  await page.waitForSelector("#rollout-list .rollout-model", { timeout: 15000 });
+  const rollout = await page.textContent("#rollout-list");
+  check(rollout.includes(MODEL) && rollout.includes(`live ${V1}`) && rollout.includes("no candidate"),
+    `the rollout panel shows the model, its live version and that it has no candidate: ${rollout.trim().slice(0, 120)}`);
 
   // 2. Parse a sentence (tokens), projective: one arc per token, the API's heads and labels.
   await page.fill("#sentence", TOKENS.join(" "));

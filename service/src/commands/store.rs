@@ -1,6 +1,6 @@
 //! `arcwright store …`: the model store from the command line.
 
-use arcwright_store::{Decision, Store, StoreError, gate};
+use arcwright_store::{Decision, RolloutPolicy, Store, StoreError, gate};
 
 use super::Failure;
 use crate::cli::{StoreAction, StoreOptions};
@@ -254,6 +254,51 @@ async fn run_action(store: &Store, action: &StoreAction) -> Result<(), Failure> 
                 .await
                 .map_err(failure)?;
             println!("{name} {alias} → {}", record.version);
+        }
+        StoreAction::Policy {
+            name,
+            mode,
+            shadow_sample,
+            min_sentences,
+            min_agreement,
+            max_latency_ratio,
+            rollback_seconds,
+            clear,
+        } => {
+            let mut policy = if *clear {
+                RolloutPolicy::default()
+            } else {
+                store
+                    .rollout_policy(name)
+                    .await
+                    .map_err(failure)?
+                    .unwrap_or_default()
+            };
+            let changes = [
+                mode.is_some(),
+                shadow_sample.is_some(),
+                min_sentences.is_some(),
+                min_agreement.is_some(),
+                max_latency_ratio.is_some(),
+                rollback_seconds.is_some(),
+                *clear,
+            ];
+            policy.mode = mode.clone().or(policy.mode);
+            policy.shadow_sample = shadow_sample.or(policy.shadow_sample);
+            policy.min_sentences = min_sentences.or(policy.min_sentences);
+            policy.min_agreement = min_agreement.or(policy.min_agreement);
+            policy.max_latency_ratio = max_latency_ratio.or(policy.max_latency_ratio);
+            policy.rollback_seconds = rollback_seconds.or(policy.rollback_seconds);
+            if changes.iter().any(|&c| c) {
+                store
+                    .set_rollout_policy(name, &policy)
+                    .await
+                    .map_err(failure)?;
+            }
+            println!(
+                "{}",
+                serde_json::to_string_pretty(&policy).map_err(Failure::runtime)?
+            );
         }
         StoreAction::History { name, json } => {
             let entries = store.history(name).await.map_err(failure)?;

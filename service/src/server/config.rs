@@ -145,6 +145,16 @@ pub struct ServeArgs {
         default_value_t = 1.5
     )]
     pub rollout_max_latency_ratio: f64,
+    /// Seconds a newly promoted live version may stay outside its band (failure rate, or CPU
+    /// time per sentence in a length bucket beyond the latency ratio, against the previous
+    /// version) before this replica rolls it back. 0 = never.
+    #[arg(long, env = "ARCWRIGHT_ROLLBACK_SECONDS", default_value_t = 60.0)]
+    pub rollback_seconds: f64,
+    /// Test switch: VERSION=SHARE makes that share of the requests served by VERSION fail, to
+    /// exercise automatic rollback. Never for production.
+    #[arg(long, env = "ARCWRIGHT_INJECT_FAILURES", hide = true)]
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub inject_failures: Option<String>,
     /// This replica's name in the store's audit log (default: the host name).
     #[arg(long, env = "ARCWRIGHT_REPLICA_ID")]
     pub replica_id: Option<String>,
@@ -420,6 +430,29 @@ impl ServeArgs {
                         .ok()
                         .filter(|h| !h.is_empty())
                         .unwrap_or_else(|| format!("pid-{}", std::process::id())),
+                },
+                rollback_hold: if self.rollback_seconds == 0.0 {
+                    Duration::ZERO
+                } else {
+                    seconds("rollback-seconds", self.rollback_seconds)?
+                },
+                inject_failures: match &self.inject_failures {
+                    None => None,
+                    Some(spec) => Some(
+                        spec.split_once('=')
+                            .and_then(|(v, share)| {
+                                share
+                                    .parse::<f64>()
+                                    .ok()
+                                    .filter(|s| (0.0..=1.0).contains(s))
+                                    .map(|s| (v.to_string(), s))
+                            })
+                            .ok_or_else(|| ConfigError::Value {
+                                flag: "inject-failures",
+                                value: spec.clone(),
+                                reason: "must be VERSION=SHARE with a share between 0 and 1",
+                            })?,
+                    ),
                 },
             },
         })

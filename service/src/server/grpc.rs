@@ -344,4 +344,40 @@ impl ModelAdmin for AdminService {
             previous_version: previous.unwrap_or_default(),
         }))
     }
+
+    async fn get_rollout(
+        &self,
+        request: Request<proto::GetRolloutRequest>,
+    ) -> Result<Response<proto::GetRolloutResponse>, Status> {
+        let name = request.into_inner().name;
+        let status = super::rollout_status(&self.state, &name).await?;
+        let text = |v: &serde_json::Value| v.as_str().unwrap_or_default().to_string();
+        let bucket = |b: &serde_json::Value| proto::RolloutBucket {
+            length_bucket: text(&b["length_bucket"]),
+            sentences: b["sentences"].as_u64().unwrap_or(0),
+            words: b["words"].as_u64().unwrap_or(0),
+            errors: b["errors"].as_u64().unwrap_or(0),
+            head_agreement: b["head_agreement"].as_f64().unwrap_or(0.0),
+            label_agreement: b["label_agreement"].as_f64().unwrap_or(0.0),
+            latency_ratio: b["latency_ratio"].as_f64().unwrap_or(0.0),
+        };
+        let shadow = &status["shadow"];
+        Ok(Response::new(proto::GetRolloutResponse {
+            name,
+            live_version: text(&status["live_version"]),
+            candidate_version: text(&status["candidate_version"]),
+            shadowing: status["shadowing"].as_bool().unwrap_or(false),
+            mode: text(&status["policy"]["mode"]),
+            sample: status["policy"]["sample"].as_f64().unwrap_or(0.0),
+            shed: shadow["shed"].as_u64().unwrap_or(0),
+            total: shadow.get("total").filter(|t| !t.is_null()).map(bucket),
+            buckets: shadow["buckets"]
+                .as_array()
+                .map(|bs| bs.iter().map(bucket).collect())
+                .unwrap_or_default(),
+            verdict: text(&shadow["gates"]["verdict"]),
+            decision: text(&shadow["decision"]),
+            reason: text(&shadow["reason"]),
+        }))
+    }
 }

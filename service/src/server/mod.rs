@@ -145,7 +145,7 @@ pub async fn rollout_status(state: &AppState, name: &str) -> Result<serde_json::
     let engine = &state.engine;
     let live = engine.registry.snapshot(Some(name))?;
     let candidate = engine.registry.candidate(name);
-    let settings = &engine.rollout.settings;
+    let settings = &engine.rollout.settings_for(name);
     let comparison = engine.rollout.comparison(name).filter(|c| {
         candidate
             .as_ref()
@@ -207,7 +207,9 @@ pub async fn rollout_status(state: &AppState, name: &str) -> Result<serde_json::
             "min_sentences": settings.min_sentences,
             "min_agreement": settings.min_agreement,
             "max_latency_ratio": settings.max_latency_ratio,
+            "rollback_seconds": settings.rollback_hold.as_secs_f64(),
             "replica": settings.replica,
+            "from_store": engine.registry.rollout_policy(name),
         },
         "shadow": shadow,
         "audit": recent,
@@ -355,6 +357,10 @@ pub async fn run(config: config::Config) -> Result<(), StartupError> {
     let follower = tokio::spawn(registry.clone().follow());
     probe::start(config.probe).map_err(StartupError::Probe)?;
     state.engine.rollout.start(registry.clone());
+    tokio::spawn(rollout::watch_for_rollback(
+        registry.clone(),
+        state.engine.rollout.clone(),
+    ));
 
     let (shutdown_tx, shutdown_rx) = tokio::sync::watch::channel(false);
     let http_state = state.clone();

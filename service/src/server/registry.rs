@@ -63,6 +63,8 @@ pub struct Registry {
     candidate_feed: tokio::sync::Mutex<AliasFeed>,
     /// Candidate versions loaded for shadow parses, by model name.
     candidates: RwLock<BTreeMap<String, Arc<Served>>>,
+    /// Rollout policies kept in the store, by model name (read with the candidates).
+    policies: RwLock<BTreeMap<String, arcwright_store::RolloutPolicy>>,
     cache: PathBuf,
     configured_default: Option<String>,
     models: RwLock<BTreeMap<String, Arc<ArcSwap<Served>>>>,
@@ -93,6 +95,7 @@ impl Registry {
                 poll,
             )),
             candidates: RwLock::new(BTreeMap::new()),
+            policies: RwLock::new(BTreeMap::new()),
             store,
             cache,
             configured_default,
@@ -254,9 +257,37 @@ impl Registry {
         self.candidates.read().ok()?.get(name).cloned()
     }
 
+    /// The rollout policy the store keeps for a model, if any.
+    pub fn rollout_policy(&self, name: &str) -> Option<arcwright_store::RolloutPolicy> {
+        self.policies.read().ok()?.get(name).cloned()
+    }
+
+    /// Reads the rollout policy of every model served (an unreadable one is logged and the
+    /// last one read kept).
+    async fn follow_policies(&self) {
+        for (name, _) in self.serving() {
+            match self.store.rollout_policy(&name).await {
+                Ok(Some(policy)) => {
+                    if let Ok(mut policies) = self.policies.write() {
+                        policies.insert(name, policy);
+                    }
+                }
+                Ok(None) => {
+                    if let Ok(mut policies) = self.policies.write() {
+                        policies.remove(&name);
+                    }
+                }
+                Err(e) => {
+                    tracing::warn!(model = %name, error = %e, "cannot read the rollout policy; keeping the last one")
+                }
+            }
+        }
+    }
+
     /// Loads the candidates whose `candidate` alias moved (a version that fails to load is
     /// logged and left out: shadow parses are never worth a failed start).
     async fn follow_candidates(&self) {
+        self.follow_policies().await;
         let changes = match self.candidate_feed.lock().await.poll_now().await {
             Ok(changes) => changes,
             Err(e) => {

@@ -320,110 +320,129 @@ impl Engine {
         metrics::IN_FLIGHT.inc();
         let _in_flight = scopeguard(|| metrics::IN_FLIGHT.dec());
         let served: Arc<Served> = self.registry.snapshot(job.model.as_deref())?;
-        let inputs = job.inputs.len();
-        let tokenize_started = Instant::now();
-        let work = self.validate(job.inputs, &served.model.abbreviations)?;
-        // Each sentence's share of the request's checking and tokenizing, so that a batch's
-        // sentences do not each report the whole batch's time.
-        let tokenize_seconds = tokenize_started.elapsed().as_secs_f64() / work.len().max(1) as f64;
-        // A sample of the requests to a model with a candidate is copied for shadow parses
-        // (never waited for).
-        self.rollout.offer(
-            &served,
-            self.registry.candidate(&served.name),
-            job.decoder,
-            || {
-                work.iter()
-                    .map(|w| (w.forms.clone(), w.tags.clone()))
-                    .collect()
-            },
-        );
-        let (sender, receiver) = tokio::sync::oneshot::channel();
-        let snapshot = served.clone();
-        let cutoff = started + deadline;
-        let span = tracing::Span::current();
-        let queued = Instant::now();
-        self.pool.spawn(move || {
-            metrics::QUEUE_WAIT.observe(queued.elapsed().as_secs_f64());
-            let _request = span.enter(); // stage spans on the pool belong to the request's span
-            use rayon::prelude::*;
-            let parsed: Vec<Option<(usize, Vec<TokenOut>)>> =
-                if snapshot.model.scorer.scores_faster_together() && work.len() > 1 {
-                    // Sentences of similar lengths scored together, one group per parsing
-                    // thread (at most GROUP_SENTENCES each).
-                    let mut work = work;
-                    work.sort_by_key(|w| w.forms.len());
-                    let threads = rayon::current_num_threads().max(1);
-                    let size = work.len().div_ceil(threads).clamp(1, GROUP_SENTENCES);
-                    let mut groups: Vec<Vec<Work>> = Vec::new();
-                    for w in work {
-                        match groups.last_mut() {
-                            Some(g) if g.len() < size => g.push(w),
-                            _ => groups.push(vec![w]),
+        let outcome: Result<ParseOutcome, ApiError> = async {
+            let inputs = job.inputs.len();
+            let tokenize_started = Instant::now();
+            let work = self.validate(job.inputs, &served.model.abbreviations)?;
+            // Each sentence's share of the request's checking and tokenizing, so that a batch's
+            // sentences do not each report the whole batch's time.
+            let tokenize_seconds =
+                tokenize_started.elapsed().as_secs_f64() / work.len().max(1) as f64;
+            // A sample of the requests to a model with a candidate is copied for shadow parses
+            // (never waited for).
+            self.rollout.offer(
+                &served,
+                self.registry.candidate(&served.name),
+                job.decoder,
+                || {
+                    work.iter()
+                        .map(|w| (w.forms.clone(), w.tags.clone()))
+                        .collect()
+                },
+            );
+            let (sender, receiver) = tokio::sync::oneshot::channel();
+            let snapshot = served.clone();
+            let cutoff = started + deadline;
+            let span = tracing::Span::current();
+            let queued = Instant::now();
+            self.pool.spawn(move || {
+                metrics::QUEUE_WAIT.observe(queued.elapsed().as_secs_f64());
+                let _request = span.enter(); // stage spans on the pool belong to the request's span
+                use rayon::prelude::*;
+                let parsed: Vec<Option<(usize, Vec<TokenOut>)>> =
+                    if snapshot.model.scorer.scores_faster_together() && work.len() > 1 {
+                        // Sentences of similar lengths scored together, one group per parsing
+                        // thread (at most GROUP_SENTENCES each).
+                        let mut work = work;
+                        work.sort_by_key(|w| w.forms.len());
+                        let threads = rayon::current_num_threads().max(1);
+                        let size = work.len().div_ceil(threads).clamp(1, GROUP_SENTENCES);
+                        let mut groups: Vec<Vec<Work>> = Vec::new();
+                        for w in work {
+                            match groups.last_mut() {
+                                Some(g) if g.len() < size => g.push(w),
+                                _ => groups.push(vec![w]),
+                            }
                         }
-                    }
-                    groups
-                        .into_par_iter()
-                        .flat_map_iter(|group| {
-                            if Instant::now() > cutoff {
-                                return vec![None; group.len()];
-                            }
-                            parse_group(&snapshot, group, &options, tokenize_seconds)
-                                .into_iter()
-                                .map(Some)
-                                .collect()
-                        })
-                        .collect()
-                } else {
-                    work.into_par_iter()
-                        .map(|w| {
-                            if Instant::now() > cutoff {
-                                return None; // the caller has given up; skip the work
-                            }
-                            Some((
-                                w.input,
-                                parse_sentence(&snapshot, w, &options, tokenize_seconds, true),
-                            ))
-                        })
-                        .collect()
+                        groups
+                            .into_par_iter()
+                            .flat_map_iter(|group| {
+                                if Instant::now() > cutoff {
+                                    return vec![None; group.len()];
+                                }
+                                parse_group(&snapshot, group, &options, tokenize_seconds)
+                                    .into_iter()
+                                    .map(Some)
+                                    .collect()
+                            })
+                            .collect()
+                    } else {
+                        work.into_par_iter()
+                            .map(|w| {
+                                if Instant::now() > cutoff {
+                                    return None; // the caller has given up; skip the work
+                                }
+                                Some((
+                                    w.input,
+                                    parse_sentence(&snapshot, w, &options, tokenize_seconds, true),
+                                ))
+                            })
+                            .collect()
+                    };
+                let _ = sender.send(parsed);
+                drop(permit);
+            });
+            let remaining = deadline.saturating_sub(started.elapsed());
+            let parsed = match tokio::time::timeout(remaining, receiver).await {
+                Ok(Ok(parsed)) => parsed,
+                Ok(Err(_)) => {
+                    return Err(ApiError::new(
+                        ErrorCode::Internal,
+                        "the parsing task ended unexpectedly",
+                    ));
+                }
+                Err(_) => {
+                    return Err(ApiError::new(
+                        ErrorCode::DeadlineExceeded,
+                        format!(
+                            "not finished within the deadline of {:.3} s",
+                            deadline.as_secs_f64()
+                        ),
+                    ));
+                }
+            };
+            let mut results: Vec<Vec<Vec<TokenOut>>> = vec![Vec::new(); inputs];
+            for entry in parsed {
+                let Some((input, sentence)) = entry else {
+                    return Err(ApiError::new(
+                        ErrorCode::DeadlineExceeded,
+                        "not finished within the deadline",
+                    ));
                 };
-            let _ = sender.send(parsed);
-            drop(permit);
-        });
-        let remaining = deadline.saturating_sub(started.elapsed());
-        let parsed = match tokio::time::timeout(remaining, receiver).await {
-            Ok(Ok(parsed)) => parsed,
-            Ok(Err(_)) => {
+                results[input].push(sentence);
+            }
+            if self.rollout.inject_failure(&served.version) {
                 return Err(ApiError::new(
                     ErrorCode::Internal,
-                    "the parsing task ended unexpectedly",
+                    "injected failure (test switch --inject-failures)",
                 ));
             }
-            Err(_) => {
-                return Err(ApiError::new(
-                    ErrorCode::DeadlineExceeded,
-                    format!(
-                        "not finished within the deadline of {:.3} s",
-                        deadline.as_secs_f64()
-                    ),
-                ));
-            }
-        };
-        let mut results: Vec<Vec<Vec<TokenOut>>> = vec![Vec::new(); inputs];
-        for entry in parsed {
-            let Some((input, sentence)) = entry else {
-                return Err(ApiError::new(
-                    ErrorCode::DeadlineExceeded,
-                    "not finished within the deadline",
-                ));
-            };
-            results[input].push(sentence);
+            Ok(ParseOutcome {
+                model_name: served.name.clone(),
+                model_version: served.version.clone(),
+                results,
+            })
         }
-        Ok(ParseOutcome {
-            model_name: served.name.clone(),
-            model_version: served.version.clone(),
-            results,
-        })
+        .await;
+        // What the model answered, for the rollback band (bad input is not the model's doing).
+        match &outcome {
+            Ok(_) => super::rollout::record_request(&served, false),
+            Err(e) if matches!(e.code, ErrorCode::Internal | ErrorCode::DeadlineExceeded) => {
+                super::rollout::record_request(&served, true)
+            }
+            Err(_) => {}
+        }
+        outcome
     }
 }
 
@@ -491,6 +510,7 @@ fn parse_sentence(
     let cpu = cpu_clock::thread_seconds() - cpu;
     if record_metrics {
         metrics::record_sentence(&times.seconds, cpu, parsed.decoder, tokens);
+        super::rollout::record_sentence(served, tokens, cpu);
     }
     tokens_out(work.forms, parsed)
 }
@@ -539,6 +559,7 @@ fn parse_group(
                 + times.seconds[Stage::Decode as usize]
                 + times.untracked;
             metrics::record_sentence(&times.seconds, cpu, parsed.decoder, work.forms.len());
+            super::rollout::record_sentence(served, work.forms.len(), cpu);
             (work.input, tokens_out(work.forms, parsed))
         })
         .collect()

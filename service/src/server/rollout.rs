@@ -57,6 +57,11 @@ pub struct RolloutSettings {
     pub max_latency_ratio: f64,
     /// This replica's name in the audit log.
     pub replica: String,
+    /// How long a new live version must stay outside its band before it is rolled back
+    /// automatically (zero: never).
+    pub rollback_hold: std::time::Duration,
+    /// Test switch: requests served by this version fail with this probability.
+    pub inject_failures: Option<(String, f64)>,
 }
 
 impl Default for RolloutSettings {
@@ -68,6 +73,8 @@ impl Default for RolloutSettings {
             min_agreement: 0.9,
             max_latency_ratio: 1.5,
             replica: "replica".to_string(),
+            rollback_hold: std::time::Duration::from_secs(60),
+            inject_failures: None,
         }
     }
 }
@@ -222,6 +229,8 @@ pub struct Rollout {
     comparisons: Mutex<BTreeMap<String, Comparison>>,
     sender: Mutex<Option<SyncSender<ShadowJob>>>,
     sampler: AtomicU64,
+    /// Set by `start`: where per-model policies are read.
+    registry: std::sync::OnceLock<Arc<Registry>>,
 }
 
 impl std::fmt::Debug for ShadowJob {
@@ -239,14 +248,40 @@ impl Rollout {
             comparisons: Mutex::new(BTreeMap::new()),
             sender: Mutex::new(None),
             sampler: AtomicU64::new(0x5eed),
+            registry: std::sync::OnceLock::new(),
         }
+    }
+
+    /// This replica's settings with the model's policy from the store laid over them.
+    pub fn settings_for(&self, name: &str) -> RolloutSettings {
+        let mut settings = self.settings.clone();
+        let Some(policy) = self.registry.get().and_then(|r| r.rollout_policy(name)) else {
+            return settings;
+        };
+        if let Some(mode) = &policy.mode {
+            settings.automatic = mode == "automatic";
+        }
+        if let Some(v) = policy.shadow_sample {
+            settings.sample = v;
+        }
+        if let Some(v) = policy.min_sentences {
+            settings.min_sentences = v;
+        }
+        if let Some(v) = policy.min_agreement {
+            settings.min_agreement = v;
+        }
+        if let Some(v) = policy.max_latency_ratio {
+            settings.max_latency_ratio = v;
+        }
+        if let Some(v) = policy.rollback_seconds {
+            settings.rollback_hold = std::time::Duration::from_secs_f64(v);
+        }
+        settings
     }
 
     /// Starts the shadow thread (idle scheduling class) and the decisions' runtime handle.
     pub fn start(self: &Arc<Self>, registry: Arc<Registry>) {
-        if self.settings.sample <= 0.0 {
-            return;
-        }
+        let _ = self.registry.set(registry.clone());
         let (sender, receiver) = sync_channel(QUEUE);
         if let Ok(mut slot) = self.sender.lock() {
             *slot = Some(sender);
@@ -258,6 +293,14 @@ impl Rollout {
             .spawn(move || rollout.shadow_thread(receiver, registry, runtime));
         if let Err(e) = spawned {
             tracing::warn!(error = %e, "cannot start the shadow thread; candidates are not judged");
+        }
+    }
+
+    /// Whether the test switch fails this request to `version`.
+    pub fn inject_failure(&self, version: &str) -> bool {
+        match &self.settings.inject_failures {
+            Some((v, share)) if v == version => self.draw() < *share,
+            _ => false,
         }
     }
 
@@ -282,7 +325,8 @@ impl Rollout {
         let Some(candidate) = candidate.filter(|c| c.version != live.version) else {
             return;
         };
-        if self.settings.sample <= 0.0 || self.draw() >= self.settings.sample {
+        let sample = self.settings_for(&live.name).sample;
+        if sample <= 0.0 || self.draw() >= sample {
             return;
         }
         let Ok(guard) = self.sender.lock() else {
@@ -344,25 +388,25 @@ impl Rollout {
         }
         while let Ok(job) = receiver.recv() {
             let counts = shadow_parse(&job);
-            for (bucket, c) in &counts {
-                let name = job.live.name.as_str();
+            let name = job.live.name.as_str();
+            for c in counts.values() {
                 metrics::SHADOW_SENTENCES
                     .with_label_values(&[name, "compared"])
                     .inc_by(c.sentences - c.errors);
                 metrics::SHADOW_SENTENCES
                     .with_label_values(&[name, "error"])
                     .inc_by(c.errors);
-                let _ = bucket;
             }
+            let settings = self.settings_for(&job.live.name);
             let judgement = self.with_comparison(&job.live, &job.candidate, |comparison| {
                 for (bucket, c) in counts {
                     comparison.buckets.entry(bucket).or_default().add(&c);
                 }
                 metrics::set_shadow(&job.live.name, comparison);
-                if !self.settings.automatic || comparison.decision.is_some() {
+                if !settings.automatic || comparison.decision.is_some() {
                     return Judgement::Waiting;
                 }
-                let judgement = judge(comparison, &self.settings);
+                let judgement = judge(comparison, &settings);
                 if judgement != Judgement::Waiting {
                     comparison.decision = Some("deciding".to_string());
                 }
@@ -540,6 +584,40 @@ async fn decide(
 mod tests {
     use super::*;
 
+    fn health(requests: u64, failed: u64, buckets: &[(&'static str, u64, f64)]) -> VersionHealth {
+        VersionHealth {
+            requests,
+            failed,
+            buckets: buckets.iter().map(|&(b, n, s)| (b, (n, s))).collect(),
+        }
+    }
+
+    /// Worked by hand: 5 of 100 requests failing against none before is outside the band
+    /// (0.05 > max(0, 0.01)); 1 of 200 (0.005) is inside; 2% against 1.5% is inside
+    /// (0.02 ≤ max(0.03, 0.025)); 1.6 ms per sentence against 1 ms is outside a 1.5 band;
+    /// fewer than 50 requests or 30 sentences in a bucket say nothing.
+    #[test]
+    fn the_rollback_band() {
+        let before = health(1000, 0, &[("16", 500, 0.5)]);
+        let reason = breach(&health(100, 5, &[]), &before, 1.5).expect("breach");
+        assert!(reason.contains("failure rate 0.0500 (5 of 100"), "{reason}");
+        assert_eq!(breach(&health(200, 1, &[]), &before, 1.5), None);
+        assert_eq!(
+            breach(&health(1000, 20, &[]), &health(1000, 15, &[]), 1.5),
+            None
+        );
+        let reason = breach(&health(100, 0, &[("16", 40, 0.064)]), &before, 1.5).expect("slow");
+        assert!(
+            reason.contains("1.60 times") && reason.contains("bucket 16"),
+            "{reason}"
+        );
+        assert_eq!(breach(&health(49, 49, &[]), &before, 1.5), None);
+        assert_eq!(
+            breach(&health(100, 0, &[("16", 29, 1.0)]), &before, 1.5),
+            None
+        );
+    }
+
     fn comparison(buckets: &[(&'static str, u64, u64, u64, f64, f64)]) -> Comparison {
         let mut c = Comparison::new("v1", "v2");
         for &(bucket, sentences, words, equal, live, candidate) in buckets {
@@ -595,5 +673,182 @@ mod tests {
         assert!(
             matches!(judge(&one_slow_bucket, &settings), Judgement::Refuse(r) if r.contains("length bucket 128"))
         );
+    }
+}
+
+/// How a version has served since it was loaded: per length bucket, sentences and parsing-thread
+/// CPU seconds; per version, requests and requests that failed for a reason of the model's own
+/// (an internal error or the deadline).
+#[derive(Debug, Clone, Default, Serialize, PartialEq)]
+pub struct VersionHealth {
+    pub requests: u64,
+    pub failed: u64,
+    /// Per length bucket: (sentences, CPU seconds).
+    pub buckets: BTreeMap<&'static str, (u64, f64)>,
+}
+
+impl VersionHealth {
+    pub fn failure_rate(&self) -> Option<f64> {
+        (self.requests > 0).then(|| self.failed as f64 / self.requests as f64)
+    }
+}
+
+/// Health per (model, version), recorded by the request path.
+pub static HEALTH: std::sync::LazyLock<Mutex<BTreeMap<(String, String), VersionHealth>>> =
+    std::sync::LazyLock::new(|| Mutex::new(BTreeMap::new()));
+
+/// Records one parsed sentence of a version.
+pub fn record_sentence(served: &Served, tokens: usize, cpu_seconds: f64) {
+    if let Ok(mut health) = HEALTH.lock() {
+        let entry = health
+            .entry((served.name.clone(), served.version.clone()))
+            .or_default();
+        let bucket = entry
+            .buckets
+            .entry(metrics::length_bucket(tokens))
+            .or_default();
+        bucket.0 += 1;
+        bucket.1 += cpu_seconds;
+    }
+}
+
+/// Records one request a version answered (failed: for a reason of the model's own).
+pub fn record_request(served: &Served, failed: bool) {
+    if let Ok(mut health) = HEALTH.lock() {
+        let entry = health
+            .entry((served.name.clone(), served.version.clone()))
+            .or_default();
+        entry.requests += 1;
+        entry.failed += u64::from(failed);
+    }
+}
+
+/// What the rollback band makes of a new live version against the previous one: `None` when
+/// within the band (or too little traffic to tell), else the reason.
+pub fn breach(
+    new: &VersionHealth,
+    previous: &VersionHealth,
+    max_latency_ratio: f64,
+) -> Option<String> {
+    const MIN_REQUESTS: u64 = 50;
+    const MIN_BUCKET_SENTENCES: u64 = 30;
+    if new.requests < MIN_REQUESTS {
+        return None;
+    }
+    let new_rate = new.failure_rate().unwrap_or(0.0);
+    let old_rate = previous.failure_rate().unwrap_or(0.0);
+    if new_rate > (2.0 * old_rate).max(old_rate + 0.01) {
+        return Some(format!(
+            "failure rate {new_rate:.4} ({} of {} requests) against {old_rate:.4} for the previous version",
+            new.failed, new.requests
+        ));
+    }
+    for (bucket, &(sentences, seconds)) in &new.buckets {
+        let Some(&(old_sentences, old_seconds)) = previous.buckets.get(bucket) else {
+            continue;
+        };
+        if sentences < MIN_BUCKET_SENTENCES
+            || old_sentences < MIN_BUCKET_SENTENCES
+            || old_seconds <= 0.0
+        {
+            continue;
+        }
+        let ratio = (seconds / sentences as f64) / (old_seconds / old_sentences as f64);
+        if ratio > max_latency_ratio {
+            return Some(format!(
+                "CPU time per sentence {ratio:.2} times the previous version's in length bucket {bucket} \
+                 (band {max_latency_ratio})"
+            ));
+        }
+    }
+    None
+}
+
+/// Watches every model after a promote: if the new live version's failure rate or CPU time per
+/// length bucket stays outside its band against the previous version's for `hold`, moves `live`
+/// back (compare-and-swap against the new version, once per fleet), records why, and swaps.
+pub async fn watch_for_rollback(registry: Arc<Registry>, rollout: Arc<Rollout>) {
+    // (model, version) → when its breach began; versions already rolled back.
+    let mut breaching: BTreeMap<(String, String), std::time::Instant> = BTreeMap::new();
+    let mut done: std::collections::BTreeSet<(String, String)> = Default::default();
+    let mut tick = tokio::time::interval(std::time::Duration::from_millis(500));
+    loop {
+        tick.tick().await;
+        let swaps = registry.swaps();
+        for (name, served) in registry.serving() {
+            let key = (name.clone(), served.version.clone());
+            let settings = rollout.settings_for(&name);
+            let hold = settings.rollback_hold;
+            if done.contains(&key) || hold.is_zero() {
+                continue;
+            }
+            // The version this one replaced, from the last successful swap to it.
+            let Some(previous) = swaps
+                .iter()
+                .rev()
+                .find(|e| e.ok && e.name == name && e.to == served.version)
+                .and_then(|e| e.from.clone())
+            else {
+                continue;
+            };
+            let (new, old) = match HEALTH.lock() {
+                Ok(health) => (
+                    health.get(&key).cloned().unwrap_or_default(),
+                    health
+                        .get(&(name.clone(), previous.clone()))
+                        .cloned()
+                        .unwrap_or_default(),
+                ),
+                Err(_) => continue,
+            };
+            let Some(reason) = breach(&new, &old, settings.max_latency_ratio) else {
+                breaching.remove(&key);
+                continue;
+            };
+            let since = *breaching
+                .entry(key.clone())
+                .or_insert_with(std::time::Instant::now);
+            if since.elapsed() < hold {
+                continue;
+            }
+            done.insert(key.clone());
+            let reason = format!(
+                "automatic rollback: {reason}, for {:.0} s",
+                since.elapsed().as_secs_f64()
+            );
+            let evidence = serde_json::json!({"new": new, "previous": old,
+                "hold_seconds": hold.as_secs_f64(), "max_latency_ratio": settings.max_latency_ratio});
+            let decision = Decision {
+                actor: format!("replica:{}", settings.replica),
+                reason: reason.clone(),
+                evidence,
+            };
+            match registry
+                .store()
+                .decide_move(
+                    &name,
+                    "live",
+                    &served.version,
+                    &previous,
+                    Action::Rollback,
+                    decision,
+                )
+                .await
+            {
+                Ok(Decided::Moved(_)) => {
+                    tracing::warn!(model = %name, from = %served.version, to = %previous, %reason, "rolled back");
+                    metrics::record_rollout_decision(&name, "rolled-back");
+                    let _ = registry.load_and_swap(&name, &previous).await;
+                }
+                Ok(Decided::AlreadyThere) => {
+                    let _ = registry.load_and_swap(&name, &previous).await;
+                }
+                Ok(Decided::Stale { .. }) => {}
+                Err(e) => {
+                    tracing::warn!(model = %name, error = %e, "automatic rollback failed; will retry");
+                    done.remove(&key);
+                }
+            }
+        }
     }
 }
