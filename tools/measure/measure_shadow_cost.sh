@@ -20,7 +20,7 @@ def load(path):
     counts = {}
     for line in open(path):
         m = re.match(metric + r"_bucket\{(.*)le=\"([^\"]+)\".*\} (\S+)", line)
-        if m and ('method="Parse"' in m.group(1) or "queue" in metric):
+        if m and ('method="parse"' in m.group(1) or "queue" in metric):
             counts[m.group(2)] = counts.get(m.group(2), 0) + float(m.group(3))
     return counts
 a, b = load(os.environ["WORK"] + "/before"), load(os.environ["WORK"] + "/after")
@@ -50,7 +50,7 @@ for round in 1 2 3; do
     live=$("$BIN/arcwright" store list --store "$WORK/store" --name demo --json | python3 -c '
 import json, sys
 d = json.load(sys.stdin)
-print(next(v["version"] for v in d["versions"] if "live" in v["aliases"]))')
+print(next(v["manifest"]["version"] for v in d["versions"] if "live" in v["aliases"]))')
     "$BIN/arcwright" store fetch --store "$WORK/store" --name demo --version "$live" --cache "$WORK/fetched" > /dev/null
     candidate=$("$BIN/arcwright" store publish --store "$WORK/store" --name demo "$WORK/fetched/demo/$live")
     "$BIN/arcwright" store promote --store "$WORK/store" --name demo --version "$candidate" --alias candidate > /dev/null
