@@ -412,16 +412,16 @@ impl Rollout {
                 }
                 judgement
             });
-            let (Some(judgement), Some(evidence)) = (
-                judgement,
-                self.comparison(&job.live.name)
-                    .and_then(|c| serde_json::to_value(&c).ok()),
-            ) else {
+            // The evidence (a copy of the comparison) only once there is a decision to take.
+            let Some(judgement) = judgement.filter(|j| *j != Judgement::Waiting) else {
                 continue;
             };
-            if judgement == Judgement::Waiting {
+            let Some(evidence) = self
+                .comparison(&job.live.name)
+                .and_then(|c| serde_json::to_value(&c).ok())
+            else {
                 continue;
-            }
+            };
             let rollout = self.clone();
             let registry = registry.clone();
             let (live, candidate) = (job.live.clone(), job.candidate.clone());
